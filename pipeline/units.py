@@ -8,7 +8,7 @@ and Hz.  Quantities are converted once, at the public edge, with
 import astropy.units as u
 import numpy as np
 
-__all__ = ["LENGTH", "VELOCITY", "MASS", "TEMPERATURE", "FREQUENCY", "strip_units"]
+__all__ = ["LENGTH", "VELOCITY", "MASS", "TEMPERATURE", "FREQUENCY", "HI_REST_FREQUENCY", "strip_units"]
 
 LENGTH = u.kpc
 VELOCITY = u.km / u.s
@@ -50,3 +50,6 @@ def strip_units(value, unit, *, name, equivalencies=None):
             f"'{name}' must be convertible to {unit}; got {value.unit}"
         ) from err
     return np.ascontiguousarray(converted, dtype=np.float64)
+
+#: Rest frequency of the hydrogen 21-cm line (Hellwig et al. 1970; check-values HI-01).
+HI_REST_FREQUENCY = 1_420_405_751.768 * u.Hz

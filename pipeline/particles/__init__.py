@@ -1,0 +1,5 @@
+"""Snapshot reading: HDF5 field maps, unit and cosmology factors, chunks, selection."""
+
+from ._chunks import ParticleChunk
+
+__all__ = ["ParticleChunk"]
