@@ -1,0 +1,15 @@
+"""Analysis of cubes: moment maps, line profiles, widths, previews."""
+
+from ._moments import global_profile, integrated_flux, line_width_w50, moment0
+from ._plots import plot_preview
+from ._spectral import channel_frequencies, channel_radio_velocities
+
+__all__ = [
+    "moment0",
+    "global_profile",
+    "integrated_flux",
+    "line_width_w50",
+    "plot_preview",
+    "channel_frequencies",
+    "channel_radio_velocities",
+]

@@ -1,0 +1,418 @@
+"""The one run path: config → plan → particles → cube → files.
+
+:func:`plan_run` turns a validated config into specs and checks feasibility
+(memory, sampling, field of view) before any heavy work; :func:`run` executes the
+plan.  The command line and the Python API both call these two functions.
+"""
+
+import dataclasses
+import math
+import warnings
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+
+from pipeline import __version__
+from pipeline.analysis import global_profile, integrated_flux, line_width_w50, moment0, plot_preview
+from pipeline.config import SNAPSHOT_FIELDS
+from pipeline.cube import Cube
+from pipeline.emission import (column_density_from_brightness, column_density_from_flux,
+                               hi_mass_from_flux, hi_weights_jy_hz, thermal_dispersion)
+from pipeline.errors import (ChannelTooWideWarning, EmptyFieldError, FieldTooSmallWarning,
+                             MemoryBudgetError, OutputError, ParticlesOutsideFieldWarning,
+                             UndersampledBeamWarning)
+from pipeline.geometry import (GridSpec, ViewSpec, angular_momentum_axis, find_centre,
+                               find_frame_velocity, make_cube_wcs, make_image_wcs, orient_chunk,
+                               project_to_grid, resolve_distances, rotation_for_view,
+                               velocity_sigma_to_channels)
+from pipeline.grid import deposit_particles
+from pipeline.instrument import (JY_PER_PIXEL, BeamSpec, add_thermal_noise, convolve_with_beam,
+                                 cube_to_kelvin, interferometer_rms, single_dish_rms)
+from pipeline.io import atomic_output, check_free_space, check_writable, write_cube, write_image
+from pipeline.particles import FieldSource, iter_positions, open_snapshot, select_sphere
+from pipeline.units import HI_REST_FREQUENCY
+
+__all__ = ["RunPlan", "RunResult", "plan_run", "run", "output_paths"]
+
+# Bytes held per particle of a chunk while it is projected and deposited: the
+# snapshot arrays (15 float64) plus the projected copies (about 10 float64).
+_BYTES_PER_CHUNK_PARTICLE = 25 * 8
+
+
+@dataclasses.dataclass(frozen=True)
+class RunPlan:
+    """Everything a run needs, resolved and checked before heavy work.
+
+    Attributes
+    ----------
+    config : `~pipeline.config.RunConfig`
+    snapshot : `~pipeline.particles.Snapshot`
+    grid : `~pipeline.geometry.GridSpec`
+    beam : `~pipeline.instrument.BeamSpec`
+    distances : `~pipeline.geometry.DistanceSpec`
+    view : `~pipeline.geometry.ViewSpec`
+    noise_rms : `~astropy.units.Quantity` ['spectral flux density'] or None
+        Per-channel rms in Jy/beam, None when noise is off.
+    peak_memory : `~astropy.units.Quantity` ['information']
+        Estimated peak memory of the run.
+    """
+
+    config: object
+    snapshot: object
+    grid: GridSpec
+    beam: BeamSpec
+    distances: object
+    view: ViewSpec
+    noise_rms: u.Quantity | None
+    peak_memory: u.Quantity
+
+    @property
+    def pixel_size_kpc(self) -> u.Quantity:
+        """Physical size of one pixel at the angular-diameter distance."""
+        return (self.grid.pixel_scale.to_value(u.rad) * self.distances.angular_diameter_distance).to(u.kpc)
+
+    @property
+    def beam_fwhm_pixels(self) -> tuple[float, float]:
+        """Beam major and minor FWHM in pixels."""
+        return (float(self.beam.major / self.grid.pixel_scale), float(self.beam.minor / self.grid.pixel_scale))
+
+
+@dataclasses.dataclass(frozen=True)
+class RunResult:
+    """What :func:`run` returns.
+
+    Attributes
+    ----------
+    cube : `~pipeline.cube.Cube`
+        The observed cube (beam, noise, output unit).
+    moment0 : `~astropy.units.Quantity`, shape (n_y, n_x)
+        Velocity-integrated map of ``cube`` (Jy/beam km/s or K km/s).
+    column_density : `~astropy.units.Quantity` ['column density'], shape (n_y, n_x)
+        HI column density from ``moment0``.
+    paths : dict of str to Path
+        Files written (empty when ``write=False``).
+    summary : dict
+        Numbers a user checks first: HI mass selected and recovered, noise rms,
+        peak signal-to-noise, W50, fraction of the gas outside the field.
+    """
+
+    cube: Cube
+    moment0: u.Quantity
+    column_density: u.Quantity
+    paths: dict
+    summary: dict
+
+
+def _field_sources(config):
+    sources = {}
+    for name in SNAPSHOT_FIELDS:
+        base = f"snapshot.fields.{name}"
+        dataset = config[f"{base}.dataset"]
+        value = config[f"{base}.value"]
+        if dataset is None and value is None:
+            continue
+        sources[name] = FieldSource(dataset=dataset, unit=config[f"{base}.unit"],
+                                    h_power=config[f"{base}.h_power"],
+                                    a_power=config[f"{base}.a_power"],
+                                    value=None if dataset is not None else value)
+    return sources
+
+
+def _noise_rms(config, grid):
+    mode = config["noise.mode"]
+    if mode == "none":
+        return None
+    if mode == "rms":
+        return config["noise.rms"].to(u.Jy / u.beam)
+    common = dict(system_temperature=config["noise.system_temperature"],
+                  dish_diameter=config["noise.dish_diameter"],
+                  aperture_efficiency=config["noise.aperture_efficiency"],
+                  n_polarisations=config["noise.n_polarisations"],
+                  channel_width=grid.channel_width,
+                  integration_time=config["noise.integration_time"])
+    if mode == "single_dish":
+        return single_dish_rms(**common)
+    return interferometer_rms(n_antennas=config["noise.n_antennas"],
+                              correlator_efficiency=config["noise.correlator_efficiency"], **common)
+
+
+def _estimate_peak_bytes(grid, chunk_particles):
+    """Accumulator (float64) + convolution workspace (padded complex FFT) + float32 output."""
+    n_chan, n_y, n_x = grid.array_shape
+    n_voxels = n_chan * n_y * n_x
+    cube_bytes = 8 * n_voxels
+    # The beam convolution holds the input, its result and one padded complex
+    # spectrum per channel batch; padding at most doubles each axis.
+    convolution_bytes = 2 * cube_bytes + 16 * 4 * n_y * n_x * min(n_chan, 16)
+    return cube_bytes + convolution_bytes + 4 * n_voxels + _BYTES_PER_CHUNK_PARTICLE * chunk_particles
+
+
+def _typical_temperature(snapshot):
+    """Mass-weighted median temperature of the first chunk (cheap; for the channel check)."""
+    chunk = next(iter(snapshot.iter_chunks()), None)
+    if chunk is None or chunk.n_particles == 0:
+        raise EmptyFieldError(f"{snapshot.path}: the snapshot holds no gas particles")
+    order = np.argsort(chunk.temperature_k)
+    cumulative = np.cumsum(chunk.mass_msun[order])
+    return chunk.temperature_k[order][np.searchsorted(cumulative, 0.5 * cumulative[-1])] * u.K
+
+
+def plan_run(config) -> RunPlan:
+    """Resolve a validated config into specs and check the run is feasible.
+
+    Parameters
+    ----------
+    config : `~pipeline.config.RunConfig`
+
+    Returns
+    -------
+    RunPlan
+
+    Raises
+    ------
+    pipeline.errors.SnapshotError
+        The snapshot is missing or malformed.
+    pipeline.errors.MemoryBudgetError
+        The estimated peak memory exceeds ``run.memory_budget``.
+
+    Warns
+    -----
+    UndersampledBeamWarning, FieldTooSmallWarning, ChannelTooWideWarning
+    """
+    snapshot = open_snapshot(config["snapshot.path"], fields=_field_sources(config),
+                             little_h=config["snapshot.little_h"],
+                             little_h_attribute=config["snapshot.little_h_attribute"],
+                             scale_factor=config["snapshot.scale_factor"],
+                             scale_factor_attribute=config["snapshot.scale_factor_attribute"],
+                             chunk_particles=config["snapshot.chunk_particles"])
+    distances = resolve_distances(distance=config["observer.distance"],
+                                  redshift=config["observer.redshift"],
+                                  cosmology=config["observer.cosmology"],
+                                  systemic_velocity=config["observer.systemic_velocity"])
+    grid = GridSpec.from_channel_width(
+        n_x=config["grid.n_x"], n_y=config["grid.n_y"], n_chan=config["grid.n_chan"],
+        pixel_scale=config["grid.pixel_scale"], ra=config["observer.ra"], dec=config["observer.dec"],
+        projection=config["grid.projection"], spectral_axis=config["grid.spectral_axis"],
+        centre_frequency=HI_REST_FREQUENCY / (1 + distances.systemic_redshift), channel_width=config["grid.channel_width"])
+    beam = BeamSpec(major=config["beam.major"], minor=config["beam.minor"],
+                    position_angle=config["beam.position_angle"])
+    view = ViewSpec(inclination=config["geometry.inclination"],
+                    position_angle=config["geometry.position_angle"],
+                    orientation=config["geometry.orientation"],
+                    rotation_matrix=config["geometry.rotation_matrix"])
+    peak = _estimate_peak_bytes(grid, min(config["snapshot.chunk_particles"], snapshot.n_particles)) * u.byte
+    budget = config["run.memory_budget"].to(u.byte)
+    if peak > budget:
+        raise MemoryBudgetError(
+            f"{config.source}:run.memory_budget: the run needs about {peak.to(u.GiB):.2f} "
+            f"for a {' x '.join(map(str, grid.array_shape))} cube, more than the budget of "
+            f"{budget.to(u.GiB):.2f}; reduce grid.n_x, grid.n_y or grid.n_chan, or raise run.memory_budget")
+    plan = RunPlan(config=config, snapshot=snapshot, grid=grid, beam=beam, distances=distances,
+                   view=view, noise_rms=_noise_rms(config, grid), peak_memory=peak.to(u.MiB))
+    _warn_about_sampling(plan)
+    return plan
+
+
+def _warn_about_sampling(plan):
+    config, grid = plan.config, plan.grid
+    minor_pixels = min(plan.beam_fwhm_pixels)
+    if minor_pixels < 3:
+        warnings.warn(f"{config.source}:grid.pixel_scale: the beam FWHM spans only {minor_pixels:.2f} pixels "
+                      f"(fewer than 3); use a smaller pixel_scale", UndersampledBeamWarning, stacklevel=3)
+    field_kpc = min(grid.n_x, grid.n_y) * plan.pixel_size_kpc
+    selected_kpc = 2 * config["geometry.selection_radius"].to(u.kpc)
+    if field_kpc < selected_kpc:
+        warnings.warn(f"{config.source}:grid: the field of view spans {field_kpc:.1f}, smaller than the "
+                      f"selected gas ({selected_kpc:.1f} across); raise grid.n_x/grid.n_y or lower "
+                      f"geometry.selection_radius", FieldTooSmallWarning, stacklevel=3)
+    temperature = _typical_temperature(plan.snapshot)
+    thermal_fwhm = math.sqrt(8 * math.log(2)) * thermal_dispersion(temperature)
+    channel = grid.velocity_channel_width.to(u.km / u.s)
+    if channel > thermal_fwhm:
+        warnings.warn(f"{config.source}:grid.channel_width: channels of {channel:.2f} are wider than the "
+                      f"thermal line FWHM ({thermal_fwhm.to(u.km / u.s):.2f} at the typical {temperature:.0f})",
+                      ChannelTooWideWarning, stacklevel=3)
+
+
+def output_paths(config, *, output_dir=None) -> dict:
+    """Return the files a run writes, keyed by kind ("cube", "moment0", "column_density", "preview")."""
+    folder = Path(output_dir) if output_dir is not None else config["output.directory"]
+    name = config["output.name"]
+    paths = {"cube": folder / f"{name}.fits"}
+    if config["output.moment0"]:
+        paths["moment0"] = folder / f"{name}_mom0.fits"
+        paths["column_density"] = folder / f"{name}_nhi.fits"
+    if config["output.preview"]:
+        paths["preview"] = folder / f"{name}_preview.png"
+    return paths
+
+
+def _check_outputs(paths, plan, *, overwrite):
+    folder = paths["cube"].parent
+    check_writable(folder)
+    for path in paths.values():
+        if path.exists() and not overwrite:
+            raise OutputError(f"{path}: exists; pass --overwrite to replace it")
+    n_voxels = int(np.prod(plan.grid.array_shape))
+    check_free_space(folder, 4 * n_voxels + 16 * plan.grid.n_x * plan.grid.n_y + 2**20)
+
+
+def _orientation(plan, positions):
+    config = plan.config
+    centre = find_centre(positions, method=config["geometry.centre"],
+                         centre_position=config["geometry.centre_position"],
+                         selection_radius=config["geometry.selection_radius"])
+    if config["geometry.frame"] == "explicit":
+        frame = config["geometry.frame_velocity"].to(u.km / u.s)
+    else:
+        frame = find_frame_velocity(positions, centre, radius=config["geometry.frame_radius"])
+    spin = None
+    if config["geometry.orientation"] == "angular_momentum":
+        spin = angular_momentum_axis(positions, centre, frame, radius=config["geometry.selection_radius"])
+    return centre, frame, rotation_for_view(plan.view, spin_axis=spin)
+
+
+def _deposit_all(plan, centre, frame, rotation, *, progress):
+    """Stream the snapshot through select → orient → project → deposit; return (out, totals)."""
+    config, grid = plan.config, plan.grid
+    out = np.zeros(grid.array_shape, dtype=np.float64)
+    centre_kpc = centre.to_value(u.kpc)
+    frame_kms = frame.to_value(u.km / u.s)
+    radius_kpc = config["geometry.selection_radius"].to_value(u.kpc)
+    turbulent_kms = config["emission.turbulent_dispersion"].to_value(u.km / u.s)
+    distance_mpc = plan.distances.luminosity_distance.to_value(u.Mpc)
+    threads = config["run.threads"] or None
+    totals = {"n_selected": 0, "hi_mass_msun": 0.0, "weight": 0.0, "deposited": 0.0, "contributions": 0}
+    for chunk in plan.snapshot.iter_chunks():
+        progress(chunk.n_particles, plan.snapshot.n_particles)
+        chunk = select_sphere(chunk, centre_kpc, radius_kpc)
+        if chunk.n_particles == 0:
+            continue
+        chunk = orient_chunk(chunk, centre_kpc, frame_kms, rotation)
+        x_pix, y_pix, chan, nu_hz, kpc_to_pix = project_to_grid(
+            chunk.position_kpc, chunk.velocity_kms, grid=grid, distances=plan.distances)
+        thermal_kms = thermal_dispersion(chunk.temperature_k * u.K).to_value(u.km / u.s)
+        sigma_kms = np.sqrt(thermal_kms**2 + turbulent_kms**2)
+        weight = hi_weights_jy_hz(chunk.mass_msun, chunk.hydrogen_fraction, chunk.neutral_fraction,
+                                  chunk.molecular_fraction, distance_mpc)
+        report = deposit_particles(x_pix, y_pix, chunk.h_kpc * kpc_to_pix, chan,
+                                   velocity_sigma_to_channels(sigma_kms, nu_hz, grid=grid), weight,
+                                   out=out, kernel=config["grid.kernel"],
+                                   support_factor=config["grid.support_factor"], n_threads=threads)
+        totals["n_selected"] += chunk.n_particles
+        totals["weight"] += report.total_weight
+        totals["deposited"] += report.deposited_weight
+        totals["contributions"] += report.n_contributions
+        totals["hi_mass_msun"] += float(np.sum(
+            chunk.mass_msun * chunk.hydrogen_fraction * chunk.neutral_fraction
+            * (1.0 if chunk.molecular_fraction is None else 1.0 - chunk.molecular_fraction)))
+    if totals["n_selected"] == 0:
+        raise EmptyFieldError(f"{config.source}:geometry.selection_radius: no gas particle lies within "
+                              f"{radius_kpc:g} kpc of the centre {np.round(centre_kpc, 3).tolist()} kpc")
+    if totals["deposited"] <= 0:
+        raise EmptyFieldError(f"{config.source}:grid: no selected gas falls inside the cube's field of view "
+                              f"and band; check observer.ra/dec, grid.n_chan and grid.channel_width")
+    return out, totals
+
+
+def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) -> RunResult:
+    """Make the synthetic observation a config describes.
+
+    Parameters
+    ----------
+    config : `~pipeline.config.RunConfig`
+        A validated config (see `~pipeline.config.load_config`).
+    output_dir : path-like, optional
+        Folder for the outputs, replacing ``output.directory``.
+    overwrite : bool
+        Replace existing outputs; otherwise an existing output is an error,
+        raised before any heavy work.
+    write : bool
+        Write the files; with False only the result is returned.
+    progress : callable, optional
+        Called as ``progress(n_read, n_total)`` after each chunk, with the
+        particles in that chunk and in the whole snapshot.
+
+    Returns
+    -------
+    RunResult
+
+    Examples
+    --------
+    >>> from pipeline.config import load_config            # doctest: +SKIP
+    >>> result = run(load_config("configs/demo.toml"), write=False)  # doctest: +SKIP
+    >>> result.cube.wcs, result.cube.unit                  # doctest: +SKIP
+    """
+    plan = plan_run(config)
+    paths = output_paths(config, output_dir=output_dir) if write else {}
+    if write:
+        _check_outputs(paths, plan, overwrite=overwrite)
+    progress = progress or (lambda n_read, n_total: None)
+
+    def positions():
+        return iter_positions(plan.snapshot, with_velocity=True)
+
+    centre, frame, rotation = _orientation(plan, positions)
+    out, totals = _deposit_all(plan, centre, frame, rotation, progress=progress)
+    outside = 1.0 - totals["deposited"] / totals["weight"]
+    if outside > 1e-3:
+        warnings.warn(f"{config.source}:grid: {100 * outside:.2f}% of the selected HI falls outside the "
+                      f"cube (field of view or band) and is not recorded", ParticlesOutsideFieldWarning,
+                      stacklevel=2)
+
+    grid = plan.grid
+    model = Cube(out / grid.channel_width.to_value(u.Hz), make_cube_wcs(grid), JY_PER_PIXEL)
+    observed = convolve_with_beam(model, plan.beam)
+    peak_model = float(observed.data.max())
+    if plan.noise_rms is not None:
+        observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"])
+    flux = integrated_flux(observed)
+    velocity, profile = global_profile(observed)
+    recovered = hi_mass_from_flux(flux, plan.distances.luminosity_distance)
+    if config["emission.unit"] == "K":
+        observed = cube_to_kelvin(observed)
+    map0 = moment0(observed)
+    if observed.unit.is_equivalent(u.K):
+        column = column_density_from_brightness(map0)
+    else:
+        column = column_density_from_flux(map0, plan.beam, redshift=plan.distances.redshift)
+    provenance = {
+        "tool": f"cubewright {__version__}",
+        "config_digest": config.digest,
+        "centre_kpc": centre.to_value(u.kpc).tolist(),
+        "frame_velocity_kms": frame.to_value(u.km / u.s).tolist(),
+        **({"noise_rms_jy_per_beam": plan.noise_rms.to_value(u.Jy / u.beam)} if plan.noise_rms is not None else {}),
+    }
+    observed = dataclasses.replace(observed, provenance={**observed.provenance, **provenance})
+    summary = {
+        "n_particles_selected": totals["n_selected"],
+        "hi_mass_selected": totals["hi_mass_msun"] * u.Msun,
+        "hi_mass_recovered": recovered.to(u.Msun),
+        "outside_fraction": outside,
+        "noise_rms": plan.noise_rms,
+        "peak_snr": None if plan.noise_rms is None else peak_model / plan.noise_rms.to_value(u.Jy / u.beam),
+        "w50": line_width_w50(velocity, profile),
+        "voxel_contributions": totals["contributions"],
+    }
+    result = RunResult(cube=observed, moment0=map0, column_density=column, paths=paths, summary=summary)
+    if write:
+        _write_outputs(result, plan, velocity, profile, overwrite=overwrite)
+    return result
+
+
+def _write_outputs(result, plan, velocity, profile, *, overwrite):
+    config, paths, cube = plan.config, result.paths, result.cube
+    text = config.to_toml()
+    write_cube(cube, paths["cube"], overwrite=overwrite, config_text=text)
+    image_wcs = make_image_wcs(plan.grid)
+    if "moment0" in paths:
+        column = result.column_density.to(u.cm**-2)
+        write_image(result.moment0.value, image_wcs, result.moment0.unit, paths["moment0"],
+                    beam=cube.beam, overwrite=overwrite, config_text=text)
+        write_image(column.value, image_wcs, column.unit, paths["column_density"],
+                    beam=cube.beam, overwrite=overwrite, config_text=text)
+    if "preview" in paths:
+        with atomic_output(paths["preview"], overwrite=overwrite) as partial:
+            plot_preview(result.column_density.to(u.cm**-2), image_wcs, velocity, profile, partial,
+                         beam=cube.beam, title=f"{config['output.name']}: HI column density and line profile")
