@@ -48,3 +48,65 @@ def make_snapshot(tmp_path):
         return path
 
     return _make
+
+
+SMALL_RUN_TOML = """
+[snapshot]
+path = "{snapshot}"
+chunk_particles = 64
+
+[geometry]
+centre = "centre_of_mass"
+selection_radius = "12 kpc"
+orientation = "simulation_axes"
+inclination = "30 deg"
+position_angle = "20 deg"
+
+[observer]
+distance = "10 Mpc"
+systemic_velocity = "700 km/s"
+ra = "359.98 deg"
+dec = "12.5 deg"
+
+[grid]
+n_x = 37
+n_y = 24
+n_chan = 17
+pixel_scale = "12 arcsec"
+channel_width = "12 km/s"
+
+[beam]
+major = "45 arcsec"
+minor = "36 arcsec"
+position_angle = "30 deg"
+
+[noise]
+mode = "rms"
+rms = "0.2 mJy/beam"
+
+[output]
+directory = "{output}"
+name = "small"
+"""
+
+
+@pytest.fixture
+def small_run_config(tmp_path, make_snapshot):
+    """Write a small, valid run config (and its snapshot) and return the config path.
+
+    Keyword arguments of the returned factory replace whole lines of the TOML
+    text: ``edit={"n_x = 37": "n_x = 40"}``.
+    """
+
+    def _make(*, edit=None, snapshot_kwargs=None):
+        snapshot = make_snapshot(200, **(snapshot_kwargs or {}))
+        text = SMALL_RUN_TOML.format(snapshot=snapshot, output=tmp_path / "out")
+        for old, new in (edit or {}).items():
+            if old not in text:
+                raise KeyError(f"{old!r} is not a line of the small config")
+            text = text.replace(old, new)
+        path = tmp_path / "small.toml"
+        path.write_text(text)
+        return path
+
+    return _make

@@ -1,0 +1,170 @@
+"""What a user sees from the command line: exit codes, one-line errors, nothing clobbered."""
+
+import numpy as np
+import pytest
+
+from pipeline.cli import main
+
+
+def _run(capsys, *argv):
+    code = main([str(a) for a in argv])
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def _one_error_line(err):
+    errors = [line for line in err.splitlines() if line.startswith("cubewright: error:")]
+    assert len(errors) == 1, err
+    assert "Traceback" not in err
+    return errors[0]
+
+
+@pytest.mark.parametrize("command", [[], ["run"], ["check"], ["inspect"], ["demo"]])
+def test_help_exits_zero_and_describes_the_command(capsys, command):
+    with pytest.raises(SystemExit) as exit_info:
+        main([*command, "--help"])
+    assert exit_info.value.code == 0
+    assert "usage: cubewright" in capsys.readouterr().out
+
+
+def test_check_prints_resolved_config_and_derived_numbers(capsys, small_run_config):
+    code, out, _ = _run(capsys, "check", small_run_config(), "--set", "grid.pixel_scale=10 arcsec")
+    assert code == 0
+    assert "pixel_scale = " in out and "10" in out
+    for label in ("pixel size", "beam FWHM", "channel width", "noise per channel", "peak memory"):
+        assert label in out
+
+
+def test_check_warns_about_an_undersampled_beam(capsys, small_run_config):
+    code, _, err = _run(capsys, "check", small_run_config(), "--set", "grid.pixel_scale=20 arcsec")
+    assert code == 0
+    assert "cubewright: warning:" in err and "fewer than 3" in err
+
+
+def test_run_writes_every_output_and_reports_the_hi_mass(capsys, small_run_config, tmp_path):
+    code, out, _ = _run(capsys, "run", small_run_config(), "--quiet")
+    assert code == 0 and out == ""
+    written = sorted(p.name for p in (tmp_path / "out").iterdir())
+    assert written == ["small.fits", "small_mom0.fits", "small_nhi.fits", "small_preview.png"]
+
+
+def test_run_refuses_to_clobber_without_overwrite(capsys, small_run_config, tmp_path):
+    config = small_run_config()
+    assert _run(capsys, "run", config, "--quiet")[0] == 0
+    cube = tmp_path / "out" / "small.fits"
+    before = cube.read_bytes()
+    code, _, err = _run(capsys, "run", config, "--quiet")
+    assert code == 2
+    assert "exists; pass --overwrite" in _one_error_line(err)
+    assert cube.read_bytes() == before
+    assert _run(capsys, "run", config, "--quiet", "--overwrite")[0] == 0
+
+
+def _assert_bad_input(capsys, argv, *fragments, output=None):
+    code, _, err = _run(capsys, *argv)
+    assert code == 2
+    line = _one_error_line(err)
+    for fragment in fragments:
+        assert fragment in line, line
+    if output is not None:
+        assert not output.exists() or list(output.iterdir()) == []
+    return line
+
+
+def test_unknown_key_names_the_file_and_suggests_the_key(capsys, small_run_config, tmp_path):
+    config = small_run_config(edit={"pixel_scale = ": "pixle_scale = "})
+    _assert_bad_input(capsys, ["run", config], "small.toml", "grid.pixle_scale", "grid.pixel_scale",
+                      output=tmp_path / "out")
+
+
+def test_wrong_dimension_names_the_key_and_the_value(capsys, small_run_config):
+    _assert_bad_input(capsys, ["check", small_run_config(), "--set", "grid.channel_width=3 kpc"],
+                      "grid.channel_width", "3 kpc")
+
+
+def test_missing_config_file(capsys, tmp_path):
+    _assert_bad_input(capsys, ["check", tmp_path / "nowhere.toml"], "nowhere.toml")
+
+
+def test_missing_snapshot(capsys, small_run_config, tmp_path):
+    config = small_run_config()
+    (tmp_path / "snapshot.h5").unlink()
+    _assert_bad_input(capsys, ["run", config], "snapshot.h5", output=tmp_path / "out")
+
+
+def test_snapshot_that_is_not_hdf5(capsys, small_run_config, tmp_path):
+    config = small_run_config()
+    (tmp_path / "snapshot.h5").write_text("not a snapshot\n")
+    _assert_bad_input(capsys, ["run", config], "snapshot.h5", "HDF5", output=tmp_path / "out")
+
+
+def test_missing_dataset(capsys, small_run_config, tmp_path):
+    config = small_run_config(snapshot_kwargs={"temperature": None})
+    _assert_bad_input(capsys, ["run", config], "snapshot.h5", "gas/temperature", output=tmp_path / "out")
+
+
+def test_wrong_shape(capsys, small_run_config, tmp_path):
+    config = small_run_config(snapshot_kwargs={"mass": np.full(199, 1e5)})
+    _assert_bad_input(capsys, ["run", config], "gas/mass", output=tmp_path / "out")
+
+
+@pytest.mark.parametrize("dataset, bad", [("temperature", np.nan), ("mass", np.inf),
+                                          ("smoothing_length", 0.0), ("smoothing_length", -1.0),
+                                          ("mass", 0.0), ("mass", -5.0)])
+def test_bad_values_in_the_snapshot(capsys, small_run_config, tmp_path, dataset, bad):
+    values = np.full(200, 0.5) if dataset == "smoothing_length" else np.full(200, 1e4)
+    values[17] = bad
+    config = small_run_config(snapshot_kwargs={dataset: values})
+    _assert_bad_input(capsys, ["run", config], f"gas/{dataset}", output=tmp_path / "out")
+
+
+def test_unknown_unit_in_the_field_map(capsys, small_run_config):
+    _assert_bad_input(capsys, ["check", small_run_config(), "--set", "snapshot.fields.mass.unit=parsnips"],
+                      "snapshot.fields.mass.unit")
+
+
+def test_mismatched_unit_in_the_field_map(capsys, small_run_config):
+    _assert_bad_input(capsys, ["check", small_run_config(), "--set", "snapshot.fields.position.unit=km/s"],
+                      "snapshot.fields.position.unit")
+
+
+def test_grid_too_large_for_the_memory_budget(capsys, small_run_config, tmp_path):
+    config = small_run_config()
+    _assert_bad_input(capsys, ["run", config, "--set", "grid.n_x=4000", "--set", "grid.n_y=4000",
+                               "--set", "grid.n_chan=500"], "run.memory_budget", output=tmp_path / "out")
+
+
+def test_no_particles_selected(capsys, small_run_config, tmp_path):
+    config = small_run_config()
+    _assert_bad_input(capsys, ["run", config, "--set", "geometry.selection_radius=0.001 kpc"],
+                      "geometry.selection_radius", output=tmp_path / "out")
+
+
+def test_no_particles_in_the_band(capsys, small_run_config, tmp_path):
+    config = small_run_config(edit={'centre = "centre_of_mass"':
+                                    'centre = "centre_of_mass"\nframe = "explicit"\n'
+                                    'frame_velocity = ["0 km/s", "0 km/s", "-20000 km/s"]'})
+    _assert_bad_input(capsys, ["run", config], "no selected gas", output=tmp_path / "out")
+
+
+def test_unwritable_output_folder(capsys, small_run_config, tmp_path):
+    blocker = tmp_path / "a_file"
+    blocker.write_text("")
+    _assert_bad_input(capsys, ["run", small_run_config(), "--output", blocker / "sub"], "a_file")
+
+
+def test_inspect_describes_a_snapshot_and_a_cube(capsys, small_run_config, tmp_path):
+    config = small_run_config()
+    code, out, _ = _run(capsys, "inspect", tmp_path / "snapshot.h5")
+    assert code == 0 and "gas/position" in out and "(200, 3)" in out
+    assert _run(capsys, "run", config, "--quiet")[0] == 0
+    code, out, _ = _run(capsys, "inspect", tmp_path / "out" / "small.fits")
+    assert code == 0
+    assert "beam" in out.lower() and "FREQ" in out
+
+
+def test_inspect_refuses_other_files(capsys, tmp_path):
+    other = tmp_path / "notes.txt"
+    other.write_text("hello\n")
+    _assert_bad_input(capsys, ["inspect", other], "notes.txt", "neither")
+
