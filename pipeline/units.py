@@ -49,7 +49,7 @@ def strip_units(value, unit, *, name, equivalencies=None):
         raise u.UnitsError(
             f"'{name}' must be convertible to {unit}; got {value.unit}"
         ) from err
-    return np.ascontiguousarray(converted, dtype=np.float64)
+    return np.array(converted, dtype=np.float64, order="C")
 
 #: Rest frequency of the hydrogen 21-cm line (Hellwig et al. 1970; check-values HI-01).
 HI_REST_FREQUENCY = 1_420_405_751.768 * u.Hz
