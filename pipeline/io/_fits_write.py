@@ -1,0 +1,224 @@
+"""FITS writers for cubes and 2-D maps, with WCS, beam, noise and provenance.
+
+Each file is a float32 primary image with the full WCS header, followed by
+binary-table extensions RUNCONFIG (the run config, one line per row, when a
+config is given) and PROVENANCE (the cube's provenance record, when it has
+one).  Header keywords besides the WCS:
+
+========  ===============================================================
+BUNIT     data unit in FITS syntax, e.g. ``'Jy beam-1'``,
+          ``'Jy km s-1 beam-1'``, ``'K'``, ``'cm-2'``
+BMAJ      beam FWHM along the major axis, degrees (when a beam is set)
+BMIN      beam FWHM along the minor axis, degrees
+BPA       beam position angle, degrees east of north
+NOISERMS  thermal noise rms per channel in Jy/beam, from
+          ``provenance["noise_rms_jy_per_beam"]``
+ORIGIN, DATE, CWVERS, CWCFGSHA
+          see :mod:`pipeline.io._provenance`
+========  ===============================================================
+
+Files carry CHECKSUM and DATASUM and pass ``fitsverify`` with no warning.
+"""
+
+import pathlib
+import re
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+
+from pipeline.errors import OutputError
+
+from ._atomic import atomic_output, check_free_space
+from ._provenance import config_table, provenance_cards, provenance_table
+
+__all__ = ["write_cube", "write_image", "fits_unit_string", "NOISE_KEYWORD", "NOISE_PROVENANCE_KEY"]
+
+NOISE_KEYWORD = "NOISERMS"
+NOISE_PROVENANCE_KEY = "noise_rms_jy_per_beam"
+
+_KEYWORD = re.compile(r"[A-Z0-9_-]{1,8}")
+_REPEATABLE = {"COMMENT", "HISTORY", ""}
+# Units that read best at the end of a FITS unit string ('Jy km s-1 beam-1').
+_TRAILING_UNITS = (u.beam, u.pix)
+
+
+def fits_unit_string(unit):
+    """Return ``unit`` in FITS unit syntax, positive powers first and beam or pixel last.
+
+    Parameters
+    ----------
+    unit : `~astropy.units.UnitBase`
+        Unit to write.
+
+    Returns
+    -------
+    str
+        A string astropy parses back to ``unit`` with ``format='fits'``.
+
+    Raises
+    ------
+    ValueError
+        If the unit has no FITS form.
+
+    Notes
+    -----
+    Under FITS rules everything after a '/' is in the denominator, so
+    ``'Jy/beam km/s'`` would mean Jy/(beam km s) (FITS Standard 4.0, Sect. 4.3;
+    check-values FW-08).  Writing negative powers avoids the trap.
+
+    Examples
+    --------
+    >>> fits_unit_string(u.Jy / u.beam * u.km / u.s)
+    'Jy km s-1 beam-1'
+    >>> fits_unit_string(u.K * u.km / u.s), fits_unit_string(u.cm**-2)
+    ('K km s-1', 'cm-2')
+    """
+    unit = u.Unit(unit)
+    powers_are_integers = all(float(power).is_integer() for power in unit.powers)
+    if unit.scale != 1 or not unit.bases or not powers_are_integers:
+        return unit.to_string("fits")
+    terms = sorted(zip(unit.bases, unit.powers), key=lambda term: (term[1] < 0, term[0] in _TRAILING_UNITS))
+    text = " ".join(base.to_string("fits") + ("" if power == 1 else str(int(power))) for base, power in terms)
+    if u.Unit(text, format="fits") != unit:
+        return unit.to_string("fits")
+    return text
+
+
+def _unit_card(unit, path):
+    """Return the BUNIT card for ``unit``."""
+    try:
+        text = fits_unit_string(unit)
+    except ValueError as err:
+        raise OutputError(f"{path}: unit '{unit}' has no FITS form; use units such as Jy/beam, K or cm-2") from err
+    return ("BUNIT", text, "unit of the data values")
+
+
+def _beam_cards(beam):
+    """Return BMAJ, BMIN and BPA cards (degrees) for a beam with major, minor and position angle."""
+    position_angle = getattr(beam, "position_angle", None)
+    if position_angle is None:
+        position_angle = beam.pa
+    return [
+        ("BMAJ", float(beam.major.to_value(u.deg)), "[deg] beam FWHM, major axis"),
+        ("BMIN", float(beam.minor.to_value(u.deg)), "[deg] beam FWHM, minor axis"),
+        ("BPA", float(position_angle.to_value(u.deg)), "[deg] beam major axis, east of north"),
+    ]
+
+
+def _noise_cards(provenance):
+    """Return the NOISERMS card when the provenance records a noise rms."""
+    if NOISE_PROVENANCE_KEY not in provenance:
+        return []
+    rms = provenance[NOISE_PROVENANCE_KEY]
+    rms_jy_per_beam = rms.to_value(u.Jy / u.beam) if isinstance(rms, u.Quantity) else float(rms)
+    return [(NOISE_KEYWORD, float(rms_jy_per_beam), "[Jy beam-1] thermal noise rms per channel")]
+
+
+def _add_extra_cards(header, extra_cards):
+    """Append caller cards, refusing bad keywords and keywords the writer already set."""
+    for card in extra_cards or ():
+        keyword = card[0]
+        if not isinstance(keyword, str) or not _KEYWORD.fullmatch(keyword):
+            raise ValueError(f"extra card keyword must be 1-8 characters of A-Z, 0-9, '-', '_'; got {keyword!r}")
+        if keyword in header and keyword not in _REPEATABLE:
+            raise ValueError(f"extra card {keyword} repeats a keyword the writer sets; choose another name")
+        header.append(tuple(card), end=True)
+
+
+def _write(data, wcs, cards, path, *, overwrite, config_text, provenance, extra_cards):
+    """Assemble the HDUs and write them through :func:`atomic_output`."""
+    primary = fits.PrimaryHDU(data=np.asarray(data, dtype=np.float32), header=wcs.to_header())
+    for card in [*cards, *provenance_cards(config_text)]:
+        primary.header.append(card, end=True)
+    _add_extra_cards(primary.header, extra_cards)
+    hdus = [primary]
+    if config_text is not None:
+        hdus.append(config_table(config_text))
+    if provenance:
+        hdus.append(provenance_table(provenance))
+    hdul = fits.HDUList(hdus)
+    n_bytes = sum(hdu.filebytes() for hdu in hdul)
+    with atomic_output(path, overwrite=overwrite) as partial:
+        check_free_space(partial.parent, n_bytes)
+        hdul.writeto(partial, checksum=True)
+
+
+def write_cube(cube, path, *, overwrite=False, config_text=None, extra_cards=None):
+    """Write a cube to a FITS file.
+
+    Parameters
+    ----------
+    cube : `~pipeline.cube.Cube`
+        Cube to write; data shape (n_chan, n_y, n_x), stored as float32.
+    path : str or os.PathLike
+        Output file; written to a hidden temporary beside it and renamed.
+    overwrite : bool
+        Replace an existing file.
+    config_text : str, optional
+        Resolved run config, stored losslessly in the RUNCONFIG extension and
+        digested into CWCFGSHA.
+    extra_cards : sequence of tuple, optional
+        ``(keyword, value[, comment])`` cards appended to the primary header.
+
+    Raises
+    ------
+    pipeline.errors.OutputError
+        If the file exists without ``overwrite``, the folder is not writable,
+        space is short, or the unit has no FITS form.
+    ValueError
+        If the WCS has no celestial axes or an extra card is refused.
+
+    Notes
+    -----
+    The beam may be any object with ``major``, ``minor`` and
+    ``position_angle`` (or radio-beam's ``pa``) angle Quantities.
+    """
+    path = pathlib.Path(path)
+    if not cube.wcs.has_celestial:
+        raise ValueError(f"the cube WCS must have celestial axes; got CTYPE {list(cube.wcs.wcs.ctype)}")
+    cards = [_unit_card(cube.unit, path)]
+    if cube.beam is not None:
+        cards.extend(_beam_cards(cube.beam))
+    cards.extend(_noise_cards(cube.provenance))
+    _write(cube.data, cube.wcs, cards, path, overwrite=overwrite, config_text=config_text,
+           provenance=cube.provenance, extra_cards=extra_cards)
+
+
+def write_image(data2d, wcs2d, unit, path, *, beam=None, overwrite=False, config_text=None, extra_cards=None):
+    """Write a 2-D map (moment map, column density) to a FITS file.
+
+    Parameters
+    ----------
+    data2d : numpy.ndarray or `~astropy.units.Quantity`, shape (n_y, n_x)
+        Map values in ``unit`` (a Quantity is converted to ``unit``).
+    wcs2d : `~astropy.wcs.WCS`
+        Two-axis celestial WCS.
+    unit : `~astropy.units.UnitBase`
+        Unit of the values, e.g. Jy/beam km/s or cm-2.
+    path : str or os.PathLike
+        Output file.
+    beam : object, optional
+        Beam with ``major``, ``minor`` and ``position_angle`` (or ``pa``).
+    overwrite, config_text, extra_cards
+        As in :func:`write_cube`.
+
+    Raises
+    ------
+    pipeline.errors.OutputError
+        As in :func:`write_cube`.
+    ValueError
+        If the data are not 2-D or the WCS is not a 2-axis celestial WCS.
+    """
+    path = pathlib.Path(path)
+    unit = u.Unit(unit)
+    values = data2d.to_value(unit) if isinstance(data2d, u.Quantity) else data2d
+    if np.ndim(values) != 2:
+        raise ValueError(f"'data2d' must have shape (n_y, n_x); got shape {np.shape(values)}")
+    if wcs2d.naxis != 2 or not wcs2d.has_celestial:
+        raise ValueError(f"'wcs2d' must be a 2-axis celestial WCS; got CTYPE {list(wcs2d.wcs.ctype)}")
+    cards = [_unit_card(unit, path)]
+    if beam is not None:
+        cards.extend(_beam_cards(beam))
+    _write(values, wcs2d, cards, path, overwrite=overwrite, config_text=config_text,
+           provenance={}, extra_cards=extra_cards)
