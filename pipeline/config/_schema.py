@@ -42,9 +42,14 @@ class Param:
     choices : tuple of str, optional
         Allowed values of a ``str`` parameter.
     minimum : float, optional
-        Smallest allowed value (numbers and quantities, in the default's unit).
+        Smallest allowed value (numbers, and quantities in their display unit).
+    maximum : float, optional
+        Largest allowed value (numbers, and quantities in their display unit).
     positive : bool
         Quantity or number must be strictly positive.
+    display_unit : str, optional
+        Unit a quantity is shown and stored in by ``RunConfig.to_toml``; None
+        means the default of its kind (arcsec, kpc, km/s, Hz, s, K, Jy/beam, GiB).
     """
 
     key: str
@@ -53,7 +58,9 @@ class Param:
     doc: str
     choices: tuple = ()
     minimum: float | None = None
+    maximum: float | None = None
     positive: bool = False
+    display_unit: str | None = None
 
 
 # Snapshot quantities the reader knows: name -> (default unit, may be a constant).
@@ -96,7 +103,7 @@ def _field_params():
             params.append(Param(
                 f"{base}.value", "float", 0.76 if name == "hydrogen_fraction" else None,
                 f"constant {name.replace('_', ' ')} used when no dataset is given",
-                minimum=0.0))
+                minimum=0.0, maximum=1.0 if name.endswith("_fraction") else None))
     return params
 
 
@@ -121,20 +128,25 @@ PARAMS = (
     Param("geometry.frame_velocity", "velocity3", None, "frame velocity when geometry.frame = 'explicit'"),
     Param("geometry.orientation", "str", "angular_momentum", "reference for the viewing angles",
           choices=("angular_momentum", "simulation_axes", "explicit")),
-    Param("geometry.inclination", "angle", "60 deg", "angle between line of sight and disc axis (0 = face-on)"),
-    Param("geometry.position_angle", "angle", "0 deg", "position angle of the receding major axis, east of north"),
+    Param("geometry.inclination", "angle", "60 deg", "angle between line of sight and disc axis (0 = face-on)",
+          minimum=0.0, maximum=180.0, display_unit="deg"),
+    Param("geometry.position_angle", "angle", "0 deg", "position angle of the receding major axis, east of north",
+          display_unit="deg"),
     Param("geometry.rotation_matrix", "matrix3", None,
           "rows are the sky east, sky north and away-from-observer axes in simulation coordinates "
           "(geometry.orientation = 'explicit')"),
     # --- observer -----------------------------------------------------------------
-    Param("observer.distance", "length", None, "distance to the galaxy (nearby sources; give this or redshift)", positive=True),
+    Param("observer.distance", "length", None, "distance to the galaxy (nearby sources; give this or redshift)",
+          positive=True, display_unit="Mpc"),
     Param("observer.redshift", "float", None, "cosmological redshift of the galaxy (give this or distance)", minimum=0.0),
     Param("observer.cosmology", "str", "Planck18", "astropy.cosmology realisation used with redshift",
           choices=("Planck18", "Planck15", "Planck13", "WMAP9", "WMAP7", "WMAP5")),
     Param("observer.systemic_velocity", "velocity", "0 km/s",
           "systemic velocity (optical convention, cz) when a distance is given"),
-    Param("observer.ra", "angle", "180 deg", "right ascension of the galaxy centre (ICRS)"),
-    Param("observer.dec", "angle", "30 deg", "declination of the galaxy centre (ICRS)"),
+    Param("observer.ra", "angle", "180 deg", "right ascension of the galaxy centre (ICRS)",
+          minimum=0.0, maximum=360.0, display_unit="deg"),
+    Param("observer.dec", "angle", "30 deg", "declination of the galaxy centre (ICRS)",
+          minimum=-90.0, maximum=90.0, display_unit="deg"),
     # --- grid ---------------------------------------------------------------------
     Param("grid.n_x", "int", 128, "pixels along right ascension", minimum=1),
     Param("grid.n_y", "int", 128, "pixels along declination", minimum=1),
@@ -155,17 +167,19 @@ PARAMS = (
     # --- beam ---------------------------------------------------------------------
     Param("beam.major", "angle", "30 arcsec", "FWHM of the beam major axis", positive=True),
     Param("beam.minor", "angle", "30 arcsec", "FWHM of the beam minor axis", positive=True),
-    Param("beam.position_angle", "angle", "0 deg", "position angle of the beam major axis, east of north"),
+    Param("beam.position_angle", "angle", "0 deg", "position angle of the beam major axis, east of north",
+          display_unit="deg"),
     # --- noise --------------------------------------------------------------------
     Param("noise.mode", "str", "interferometer", "how the thermal noise is set",
           choices=("none", "rms", "single_dish", "interferometer")),
     Param("noise.rms", "flux_density", None, "noise rms per channel, in Jy/beam (noise.mode = 'rms')", positive=True),
     Param("noise.system_temperature", "temperature", "25 K", "system temperature", positive=True),
-    Param("noise.dish_diameter", "length", "15 m", "diameter of each dish", positive=True),
-    Param("noise.aperture_efficiency", "float", 0.7, "aperture efficiency", positive=True),
+    Param("noise.dish_diameter", "length", "15 m", "diameter of each dish", positive=True, display_unit="m"),
+    Param("noise.aperture_efficiency", "float", 0.7, "aperture efficiency", positive=True, maximum=1.0),
     Param("noise.n_antennas", "int", 64, "number of antennas (interferometer)", minimum=2),
-    Param("noise.n_polarisations", "int", 2, "polarisations combined", choices=(), minimum=1),
-    Param("noise.correlator_efficiency", "float", 1.0, "system (correlator) efficiency", positive=True),
+    Param("noise.n_polarisations", "int", 2, "polarisations combined", minimum=1, maximum=2),
+    Param("noise.correlator_efficiency", "float", 1.0, "system (correlator) efficiency", positive=True,
+          maximum=1.0),
     Param("noise.integration_time", "time", "4 h", "on-source integration time", positive=True),
     Param("noise.seed", "int", 1, "seed of the noise generator", minimum=0),
     # --- output -------------------------------------------------------------------
