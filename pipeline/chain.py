@@ -15,7 +15,7 @@ import numpy as np
 
 from pipeline import __version__
 from pipeline.analysis import global_profile, integrated_flux, line_width_w50, moment0, plot_preview
-from pipeline.config import SNAPSHOT_FIELDS
+from pipeline.config import PARAMS_BY_KEY, SNAPSHOT_FIELDS
 from pipeline.cube import Cube
 from pipeline.emission import (column_density_from_brightness, column_density_from_flux,
                                hi_mass_from_flux, hi_weights_jy_hz, thermal_dispersion)
@@ -25,7 +25,7 @@ from pipeline.errors import (ChannelTooWideWarning, EmptyFieldError, FieldTooSma
 from pipeline.geometry import (GridSpec, ViewSpec, angular_momentum_axis, find_centre,
                                find_frame_velocity, make_cube_wcs, make_image_wcs, orient_chunk,
                                project_to_grid, resolve_distances, rotation_for_view,
-                               velocity_sigma_to_channels)
+                               velocity_dispersion_to_channels)
 from pipeline.grid import deposit_particles
 from pipeline.instrument import (JY_PER_PIXEL, BeamSpec, add_thermal_noise, convolve_with_beam,
                                  cube_to_kelvin, interferometer_rms, single_dish_rms)
@@ -105,17 +105,17 @@ class RunResult:
 
 
 def _field_sources(config):
+    """Map each configured snapshot quantity to its dataset or to its constant value."""
     sources = {}
     for name in SNAPSHOT_FIELDS:
         base = f"snapshot.fields.{name}"
         dataset = config[f"{base}.dataset"]
-        value = config[f"{base}.value"]
+        value = config[f"{base}.value"] if f"{base}.value" in PARAMS_BY_KEY else None
         if dataset is None and value is None:
             continue
-        sources[name] = FieldSource(dataset=dataset, unit=config[f"{base}.unit"],
-                                    h_power=config[f"{base}.h_power"],
-                                    a_power=config[f"{base}.a_power"],
-                                    value=None if dataset is not None else value)
+        sources[name] = FieldSource(dataset=dataset, value=None if dataset is not None else value,
+                                    unit=config[f"{base}.unit"], h_power=config[f"{base}.h_power"],
+                                    a_power=config[f"{base}.a_power"])
     return sources
 
 
@@ -297,7 +297,7 @@ def _deposit_all(plan, centre, frame, rotation, *, progress):
         weight = hi_weights_jy_hz(chunk.mass_msun, chunk.hydrogen_fraction, chunk.neutral_fraction,
                                   chunk.molecular_fraction, distance_mpc)
         report = deposit_particles(x_pix, y_pix, chunk.h_kpc * kpc_to_pix, chan,
-                                   velocity_sigma_to_channels(sigma_kms, nu_hz, grid=grid), weight,
+                                   velocity_dispersion_to_channels(sigma_kms, nu_hz, grid=grid), weight,
                                    out=out, kernel=config["grid.kernel"],
                                    support_factor=config["grid.support_factor"], n_threads=threads)
         totals["n_selected"] += chunk.n_particles

@@ -46,7 +46,7 @@ def format_plan(plan) -> str:
     if plan.noise_rms is None:
         lines.append(_line("noise per channel", "none (noise.mode = 'none')"))
     else:
-        kelvin = plan.noise_rms.to_value(u.Jy / u.beam) * jy_per_beam_to_kelvin(grid.centre_frequency, beam)
+        kelvin = plan.noise_rms * jy_per_beam_to_kelvin(grid.centre_frequency, beam)
         lines.append(_line("noise per channel", f"{plan.noise_rms.to(u.mJy / u.beam):.4g} = {kelvin.to(u.mK):.4g} "
                                                 f"({plan.config['noise.mode']})"))
     snapshot = plan.snapshot

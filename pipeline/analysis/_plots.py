@@ -2,6 +2,7 @@
 
 import astropy.units as u
 import numpy as np
+from astropy.wcs.utils import proj_plane_pixel_scales
 
 __all__ = ["plot_preview"]
 
@@ -28,15 +29,16 @@ def plot_preview(moment_map, image_wcs, velocity, flux_density, path, *, beam=No
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-    from astropy.wcs.utils import proj_plane_pixel_scales
+    from matplotlib.colors import PowerNorm
     from matplotlib.patches import Ellipse
 
     figure = plt.figure(figsize=(12, 5.2))
     sky = figure.add_subplot(1, 2, 1, projection=image_wcs)
     values = moment_map.value
-    positive = values[values > 0]
-    vmax = np.percentile(positive, 99.5) if positive.size else 1.0
-    image = sky.imshow(values, origin="lower", cmap="inferno", vmin=0.0, vmax=vmax)
+    vmax = float(np.nanmax(values)) if np.nanmax(values) > 0 else 1.0
+    # A square-root stretch shows the faint outer disc and the bright centre together.
+    image = sky.imshow(values, origin="lower", cmap="inferno",
+                       norm=PowerNorm(gamma=0.5, vmin=0.0, vmax=vmax))
     sky.coords[0].set_axislabel("Right ascension (ICRS)")
     sky.coords[1].set_axislabel("Declination (ICRS)")
     sky.coords[0].set_major_formatter("hh:mm:ss")

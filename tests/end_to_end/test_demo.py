@@ -56,7 +56,7 @@ def test_demo_outputs_pass_fitsverify_and_read_back(demo_snapshot, tmp_path):
         assert "Verification found 0 warning(s) and 0 error(s)" in report.stdout, (kind, report.stdout)
     cube = read_cube(result.paths["cube"])
     assert cube.unit == u.Jy / u.beam
-    assert cube.data.shape == (128, 200, 200)
+    assert cube.data.shape == (128, 128, 128)
     with fits.open(result.paths["cube"]) as hdul:
         header = hdul[0].header
         assert header["BMAJ"] == pytest.approx(24 / 3600)

@@ -39,7 +39,7 @@ def test_single_particle_lands_at_the_astropy_wcs_position(make_snapshot, projec
     offset_kpc = np.array([2.0, -1.5, 0.0])        # 2 kpc east, 1.5 kpc south of the centre
     v_los_kms = 55.0                                # receding
     snapshot = make_snapshot(1, position=offset_kpc[None, :], velocity=np.array([[0.0, 0.0, v_los_kms]]),
-                             smoothing_length=np.array([0.05]))
+                             smoothing_length=np.array([0.8]))
     result = run(_config(snapshot, projection=projection, spectral_axis=spectral_axis), write=False)
     cube = result.cube
 
