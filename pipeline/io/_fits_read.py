@@ -1,7 +1,6 @@
 """FITS readers: a cube back into a Cube, the stored run config, and a text summary."""
 
 import contextlib
-import dataclasses
 import math
 import pathlib
 
@@ -13,12 +12,13 @@ from astropy.wcs import WCS
 
 from pipeline.cube import Cube
 from pipeline.errors import FitsInputError
+from pipeline.instrument import BeamSpec
 
 from ._fits_write import NOISE_KEYWORD, NOISE_PROVENANCE_KEY
 from ._provenance import (CONFIG_EXTNAME, DIGEST_KEYWORD, PROVENANCE_EXTNAME, VERSION_KEYWORD, config_digest,
                           config_text_from_table, provenance_from_table)
 
-__all__ = ["read_cube", "read_config_text", "describe_fits", "FitsBeam"]
+__all__ = ["read_cube", "read_config_text", "describe_fits"]
 
 # Spectral CTYPE (first four characters) -> equivalencies to frequency, given the rest frequency.
 _TO_FREQUENCY = {
@@ -30,28 +30,6 @@ _TO_FREQUENCY = {
     "VOPT": u.doppler_optical,
     "VELO": u.doppler_relativistic,
 }
-
-
-@dataclasses.dataclass(frozen=True)
-class FitsBeam:
-    """A Gaussian beam read from the BMAJ, BMIN and BPA keywords.
-
-    Parameters
-    ----------
-    major, minor : `~astropy.units.Quantity` ['angle']
-        FWHM along the major and minor axes.
-    position_angle : `~astropy.units.Quantity` ['angle']
-        Major axis, east of north.
-    """
-
-    major: u.Quantity
-    minor: u.Quantity
-    position_angle: u.Quantity
-
-    @property
-    def solid_angle(self) -> u.Quantity:
-        """Beam solid angle pi major minor / (4 ln 2) (check-values HI-07), in sr."""
-        return (math.pi * self.major * self.minor / (4.0 * math.log(2.0))).to(u.sr)
 
 
 def _one_line(err):
@@ -111,7 +89,7 @@ def _unit(header, path, index):
 
 
 def _beam(header, path, index):
-    """Return the FitsBeam from BMAJ/BMIN/BPA (degrees), or None when BMAJ and BMIN are absent."""
+    """Return the BeamSpec from BMAJ/BMIN/BPA (degrees), or None when BMAJ and BMIN are absent."""
     present = [key for key in ("BMAJ", "BMIN") if key in header]
     if not present:
         return None
@@ -127,8 +105,11 @@ def _beam(header, path, index):
     if values["BMAJ"] <= 0 or values["BMIN"] <= 0:
         raise FitsInputError(f"{path}: HDU {index} BMAJ and BMIN must be positive (degrees); "
                              f"got {values['BMAJ']!r}, {values['BMIN']!r}")
-    return FitsBeam(major=values["BMAJ"] * u.deg, minor=values["BMIN"] * u.deg,
-                    position_angle=values["BPA"] * u.deg)
+    try:
+        return BeamSpec(major=values["BMAJ"] * u.deg, minor=values["BMIN"] * u.deg,
+                        position_angle=values["BPA"] * u.deg)
+    except ValueError as err:
+        raise FitsInputError(f"{path}: HDU {index} BMAJ/BMIN/BPA do not describe a beam: {err}") from err
 
 
 def _stored_record(hdul, path):
@@ -166,7 +147,7 @@ def read_cube(path):
     `~pipeline.cube.Cube`
         Data in native byte order (float32 stays float32), shape
         (n_chan, n_y, n_x); the WCS; the unit from BUNIT (FITS syntax); the beam
-        as a :class:`FitsBeam` or None; the provenance record written by
+        as a :class:`~pipeline.instrument.BeamSpec` or None; the provenance record written by
         :func:`~pipeline.io.write_cube` (or ``{"noise_rms_jy_per_beam": NOISERMS}``
         for files with only the keyword).
 

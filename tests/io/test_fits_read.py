@@ -213,6 +213,7 @@ def test_bad_bunit_is_refused(bunit, tmp_path):
     ({"BMAJ": "wide", "BMIN": 0.01}, "BMAJ must be a number of degrees; got 'wide'"),
     ({"BMAJ": 0.01, "BMIN": 0.005, "BPA": True}, "BPA must be a number of degrees; got True"),
     ({"BMAJ": -0.01, "BMIN": 0.005}, "BMAJ and BMIN must be positive"),
+    ({"BMAJ": 0.005, "BMIN": 0.01}, "BMAJ/BMIN/BPA do not describe a beam"),
 ])
 def test_bad_beam_keywords_are_refused(cards, message, tmp_path):
     path = _write_raw(tmp_path / "cube.fits", np.zeros((2, 3, 4), np.float32), **cards, **_cube_cards())
