@@ -159,7 +159,12 @@ def interferometer_rms(*, system_temperature, dish_diameter, aperture_efficiency
     return sefd / (eta_s * np.sqrt(products)) * _JY_PER_BEAM
 
 
-def _beam_correlated_noise(rng, array_shape, kernel) -> np.ndarray:
+def _channel_generators(seed, first_channel, n_chan):
+    """One generator per channel, keyed by (seed, absolute channel index), so slabs match the whole cube."""
+    return [np.random.default_rng([seed, first_channel + k]) for k in range(n_chan)]
+
+
+def _beam_correlated_noise(generators, array_shape, kernel) -> np.ndarray:
     """Unit-variance Gaussian noise correlated on ``kernel``, made on a padded grid and cropped (no wrap-around)."""
     n_chan, n_y, n_x = array_shape
     padded = _padded_shape((n_y, n_x), kernel.shape)
@@ -170,7 +175,7 @@ def _beam_correlated_noise(rng, array_shape, kernel) -> np.ndarray:
     noise = np.empty(array_shape)
     for start in range(0, n_chan, _CHANNELS_PER_BATCH):
         n_batch = min(_CHANNELS_PER_BATCH, n_chan - start)
-        white = rng.standard_normal((n_batch, *padded))
+        white = np.stack([g.standard_normal(padded) for g in generators[start:start + n_batch]])
         transformed = scipy.fft.rfft2(white, axes=(-2, -1))
         transformed *= spectrum
         correlated = scipy.fft.irfft2(transformed, s=padded, axes=(-2, -1))
@@ -178,7 +183,7 @@ def _beam_correlated_noise(rng, array_shape, kernel) -> np.ndarray:
     return noise
 
 
-def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True) -> Cube:
+def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=0) -> Cube:
     """Return a copy of a Jy/beam cube with Gaussian thermal noise added.
 
     Parameters
@@ -190,10 +195,14 @@ def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True) -> Cube:
         Expected noise rms per channel, in Jy/beam (e.g. from
         :func:`interferometer_rms`).
     seed : int
-        Seed of `numpy.random.default_rng`; the same seed gives the same noise.
+        Seed of the noise; the same seed gives the same noise.  Channel k is
+        drawn from ``numpy.random.default_rng([seed, first_channel + k])``.
     correlate_on_beam : bool
         Smooth the noise with the beam, as in a restored image; otherwise each
         pixel is independent.
+    first_channel : int
+        Index of the cube's first channel within the full band, so that a cube
+        made in channel slabs gets exactly the noise of the cube made whole.
 
     Returns
     -------
@@ -225,16 +234,18 @@ def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True) -> Cube:
         raise ValueError(f"'rms' must be one finite positive value, e.g. '0.5 mJy/beam'; got {rms!r}")
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise ValueError(f"'seed' must be a non-negative integer, e.g. 1; got {seed!r}")
-    rng = np.random.default_rng(int(seed))
+    if isinstance(first_channel, bool) or not isinstance(first_channel, (int, np.integer)) or first_channel < 0:
+        raise ValueError(f"'first_channel' must be a non-negative integer, e.g. 0; got {first_channel!r}")
+    generators = _channel_generators(int(seed), int(first_channel), cube.data.shape[0])
     if correlate_on_beam:
         if cube.beam is None:
             raise ValueError("the cube has no beam to correlate the noise on; apply convolve_with_beam first "
                              "or pass correlate_on_beam=False")
         _require_beam_spec(cube.beam, "cube.beam")
         covariance = _pixel_covariance(cube.beam, _celestial_pixel_matrix(cube.wcs))
-        noise = _beam_correlated_noise(rng, cube.data.shape, _kernel_from_covariance(covariance))
+        noise = _beam_correlated_noise(generators, cube.data.shape, _kernel_from_covariance(covariance))
     else:
-        noise = rng.standard_normal(cube.data.shape)
+        noise = np.stack([g.standard_normal(cube.data.shape[1:]) for g in generators])
     data = (cube.data + float(rms_jy) * noise).astype(np.result_type(cube.data.dtype, np.float32), copy=False)
     provenance = {**cube.provenance,
                   "noise_rms_jy_per_beam": float(_strip(rms, _JY_PER_BEAM, name="rms")),
