@@ -33,7 +33,8 @@ from pipeline.io import atomic_output, check_free_space, check_writable, write_c
 from pipeline.particles import FieldSource, iter_positions, open_snapshot, select_sphere
 from pipeline.units import HI_REST_FREQUENCY
 
-__all__ = ["RunPlan", "RunResult", "plan_run", "run", "output_paths"]
+__all__ = ["RunPlan", "RunResult", "Orientation", "RenderedChannels", "plan_run", "orient_galaxy",
+           "render_channels", "summarise", "run", "output_paths"]
 
 # Bytes held per particle of a chunk while it is projected and deposited: the
 # snapshot arrays (15 float64) plus the projected copies (about 10 float64).
@@ -258,8 +259,65 @@ def _check_outputs(paths, plan, *, overwrite):
     check_free_space(folder, 4 * n_voxels + 16 * plan.grid.n_x * plan.grid.n_y + 2**20)
 
 
-def _orientation(plan, positions):
+@dataclasses.dataclass(frozen=True)
+class Orientation:
+    """Where the galaxy is and how it is seen: the result of the geometry passes.
+
+    Attributes
+    ----------
+    centre : `~astropy.units.Quantity` ['length'], shape (3,)
+        Galaxy centre in simulation coordinates.
+    frame_velocity : `~astropy.units.Quantity` ['speed'], shape (3,)
+        Velocity of the galaxy's rest frame in simulation coordinates.
+    rotation : numpy.ndarray, shape (3, 3)
+        Rows are the sky east, sky north and away-from-observer axes.
+    """
+
+    centre: u.Quantity
+    frame_velocity: u.Quantity
+    rotation: np.ndarray
+
+
+@dataclasses.dataclass(frozen=True)
+class RenderedChannels:
+    """The observed cube of a range of channels, and the bookkeeping of its deposit.
+
+    Attributes
+    ----------
+    cube : `~pipeline.cube.Cube`
+        Beam-convolved cube of those channels in Jy/beam, with noise.
+    peak_model : float
+        Largest noise-free value, in Jy/beam.
+    hi_mass : `~astropy.units.Quantity` ['mass']
+        HI mass of the selected gas (all of it, whichever channels were rendered).
+    n_selected : int
+        Particles within the selection radius.
+    total_weight, deposited_weight : float
+        ∫S dν of the selected gas and of the part that fell in these channels (Jy Hz).
+    n_contributions : int
+        Voxel contributions made by the deposit.
+    """
+
+    cube: Cube
+    peak_model: float
+    hi_mass: u.Quantity
+    n_selected: int
+    total_weight: float
+    deposited_weight: float
+    n_contributions: int
+
+
+def orient_galaxy(plan) -> Orientation:
+    """Find the centre, the velocity frame and the viewing rotation (geometry passes).
+
+    Each pass reads positions, masses and velocities chunk by chunk, so memory
+    stays bounded whatever the snapshot size.
+    """
     config = plan.config
+
+    def positions():
+        return iter_positions(plan.snapshot, with_velocity=True)
+
     centre = find_centre(positions, method=config["geometry.centre"],
                          centre_position=config["geometry.centre_position"],
                          selection_radius=config["geometry.selection_radius"])
@@ -270,50 +328,89 @@ def _orientation(plan, positions):
     spin = None
     if config["geometry.orientation"] == "angular_momentum":
         spin = angular_momentum_axis(positions, centre, frame, radius=config["geometry.selection_radius"])
-    return centre, frame, rotation_for_view(plan.view, spin_axis=spin)
+    return Orientation(centre=centre, frame_velocity=frame, rotation=rotation_for_view(plan.view, spin_axis=spin))
 
 
-def _deposit_all(plan, centre, frame, rotation, *, progress):
-    """Stream the snapshot through select → orient → project → deposit; return (out, totals)."""
+def _slab_wcs(grid, first, stop):
+    wcs = make_cube_wcs(grid)
+    if (first, stop) == (0, grid.n_chan):
+        return wcs
+    sliced = wcs.slice((slice(first, stop), slice(None), slice(None)))
+    sliced.pixel_shape = (grid.n_x, grid.n_y, stop - first)
+    return sliced
+
+
+def render_channels(plan, orientation, *, channels=None, progress=None) -> RenderedChannels:
+    """Grid, convolve and add noise to the channels ``channels`` of the planned cube.
+
+    Parameters
+    ----------
+    plan : RunPlan
+    orientation : Orientation
+        From :func:`orient_galaxy`.
+    channels : tuple of int, optional
+        ``(first, stop)`` channel range of the full band (default: all). Ranges
+        rendered separately and stacked equal the whole cube, noise included.
+    progress : callable, optional
+        Called as ``progress(n_read, n_total)`` after each snapshot chunk.
+
+    Returns
+    -------
+    RenderedChannels
+
+    Raises
+    ------
+    pipeline.errors.EmptyFieldError
+        No gas lies within the selection radius.
+    """
     config, grid = plan.config, plan.grid
-    out = np.zeros(grid.array_shape, dtype=np.float64)
-    centre_kpc = centre.to_value(u.kpc)
-    frame_kms = frame.to_value(u.km / u.s)
+    first, stop = channels if channels is not None else (0, grid.n_chan)
+    if not 0 <= first < stop <= grid.n_chan:
+        raise ValueError(f"'channels' must satisfy 0 <= first < stop <= {grid.n_chan}; got {channels!r}")
+    progress = progress or (lambda n_read, n_total: None)
+    out = np.zeros((stop - first, grid.n_y, grid.n_x), dtype=np.float64)
+    centre_kpc = orientation.centre.to_value(u.kpc)
+    frame_kms = orientation.frame_velocity.to_value(u.km / u.s)
     radius_kpc = config["geometry.selection_radius"].to_value(u.kpc)
     turbulent_kms = config["emission.turbulent_dispersion"].to_value(u.km / u.s)
+    is_delta = config["grid.line_profile"] == "delta"
     distance_mpc = plan.distances.luminosity_distance.to_value(u.Mpc)
     threads = config["run.threads"] or None
-    totals = {"n_selected": 0, "hi_mass_msun": 0.0, "weight": 0.0, "deposited": 0.0, "contributions": 0}
+    n_selected, total, deposited, contributions = 0, 0.0, 0.0, 0
     for chunk in plan.snapshot.iter_chunks():
         progress(chunk.n_particles, plan.snapshot.n_particles)
         chunk = select_sphere(chunk, centre_kpc, radius_kpc)
         if chunk.n_particles == 0:
             continue
-        chunk = orient_chunk(chunk, centre_kpc, frame_kms, rotation)
+        chunk = orient_chunk(chunk, centre_kpc, frame_kms, orientation.rotation)
         x_pix, y_pix, chan, nu_hz, kpc_to_pix = project_to_grid(
             chunk.position_kpc, chunk.velocity_kms, grid=grid, distances=plan.distances)
-        thermal_kms = thermal_dispersion(chunk.temperature_k * u.K).to_value(u.km / u.s)
-        sigma_kms = np.sqrt(thermal_kms**2 + turbulent_kms**2)
+        if is_delta:
+            sigma_chan = np.zeros_like(chan)
+        else:
+            thermal_kms = thermal_dispersion(chunk.temperature_k * u.K).to_value(u.km / u.s)
+            sigma_chan = velocity_dispersion_to_channels(np.sqrt(thermal_kms**2 + turbulent_kms**2), nu_hz,
+                                                         grid=grid)
         weight = hi_weights_jy_hz(chunk.mass_msun, chunk.hydrogen_fraction, chunk.neutral_fraction,
                                   chunk.molecular_fraction, distance_mpc)
-        report = deposit_particles(x_pix, y_pix, chunk.h_kpc * kpc_to_pix, chan,
-                                   velocity_dispersion_to_channels(sigma_kms, nu_hz, grid=grid), weight,
+        report = deposit_particles(x_pix, y_pix, chunk.h_kpc * kpc_to_pix, chan - first, sigma_chan, weight,
                                    out=out, kernel=config["grid.kernel"],
                                    support_factor=config["grid.support_factor"], n_threads=threads)
-        totals["n_selected"] += chunk.n_particles
-        totals["weight"] += report.total_weight
-        totals["deposited"] += report.deposited_weight
-        totals["contributions"] += report.n_contributions
-        totals["hi_mass_msun"] += float(np.sum(
-            chunk.mass_msun * chunk.hydrogen_fraction * chunk.neutral_fraction
-            * (1.0 if chunk.molecular_fraction is None else 1.0 - chunk.molecular_fraction)))
-    if totals["n_selected"] == 0:
+        n_selected += chunk.n_particles
+        total += report.total_weight
+        deposited += report.deposited_weight
+        contributions += report.n_contributions
+    if n_selected == 0:
         raise EmptyFieldError(f"{config.source}:geometry.selection_radius: no gas particle lies within "
                               f"{radius_kpc:g} kpc of the centre {np.round(centre_kpc, 3).tolist()} kpc")
-    if totals["deposited"] <= 0:
-        raise EmptyFieldError(f"{config.source}:grid: no selected gas falls inside the cube's field of view "
-                              f"and band; check observer.ra/dec, grid.n_chan and grid.channel_width")
-    return out, totals
+    hi_mass = hi_mass_from_flux(total * u.Jy * u.Hz, plan.distances.luminosity_distance).to(u.Msun)
+    model = Cube(out / grid.channel_width.to_value(u.Hz), _slab_wcs(grid, first, stop), JY_PER_PIXEL)
+    observed = convolve_with_beam(model, plan.beam)
+    peak_model = float(observed.data.max())
+    if plan.noise_rms is not None:
+        observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"], first_channel=first)
+    return RenderedChannels(cube=observed, peak_model=peak_model, hi_mass=hi_mass, n_selected=n_selected,
+                            total_weight=total, deposited_weight=deposited, n_contributions=contributions)
 
 
 def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) -> RunResult:
@@ -348,30 +445,43 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) 
     paths = output_paths(config, output_dir=output_dir) if write else {}
     if write:
         _check_outputs(paths, plan, overwrite=overwrite)
-    progress = progress or (lambda n_read, n_total: None)
-
-    def positions():
-        return iter_positions(plan.snapshot, with_velocity=True)
-
-    centre, frame, rotation = _orientation(plan, positions)
-    out, totals = _deposit_all(plan, centre, frame, rotation, progress=progress)
-    outside = 1.0 - totals["deposited"] / totals["weight"]
+    orientation = orient_galaxy(plan)
+    rendered = render_channels(plan, orientation, progress=progress)
+    if rendered.deposited_weight <= 0:
+        raise EmptyFieldError(f"{config.source}:grid: no selected gas falls inside the cube's field of view "
+                              f"and band; check observer.ra/dec, grid.n_chan and grid.channel_width")
+    outside = 1.0 - rendered.deposited_weight / rendered.total_weight
     if outside > 1e-3:
         warnings.warn(f"{config.source}:grid: {100 * outside:.2f}% of the selected HI falls outside the "
                       f"cube (field of view or band) and is not recorded", ParticlesOutsideFieldWarning,
                       stacklevel=2)
+    result = summarise(plan, orientation, rendered, paths=paths)
+    if write:
+        _write_outputs(result, plan, overwrite=overwrite)
+    return result
 
-    grid = plan.grid
-    model = Cube(out / grid.channel_width.to_value(u.Hz), make_cube_wcs(grid), JY_PER_PIXEL)
-    observed = convolve_with_beam(model, plan.beam)
-    peak_model = float(observed.data.max())
-    if plan.noise_rms is not None:
-        observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"])
-    flux = integrated_flux(observed)
-    velocity, profile = global_profile(observed)
-    recovered = hi_mass_from_flux(flux, plan.distances.luminosity_distance)
-    if config["emission.unit"] == "K":
-        observed = cube_to_kelvin(observed)
+
+def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
+    """Measure a rendered full-band cube: moment maps, line profile, HI mass, S/N.
+
+    Parameters
+    ----------
+    plan : RunPlan
+    orientation : Orientation
+    rendered : RenderedChannels
+        Covering every channel of the planned cube; the result's cube is in
+        the output unit (``emission.unit``).
+    paths : dict, optional
+        Output files to record in the result.
+
+    Returns
+    -------
+    RunResult
+    """
+    config, in_jy = plan.config, rendered.cube
+    velocity, profile = global_profile(in_jy)
+    recovered = hi_mass_from_flux(integrated_flux(in_jy), plan.distances.luminosity_distance)
+    observed = cube_to_kelvin(in_jy) if config["emission.unit"] == "K" else in_jy
     map0 = moment0(observed)
     if observed.unit.is_equivalent(u.K):
         column = column_density_from_brightness(map0)
@@ -380,29 +490,29 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) 
     provenance = {
         "tool": f"cubewright {__version__}",
         "config_digest": config.digest,
-        "centre_kpc": centre.to_value(u.kpc).tolist(),
-        "frame_velocity_kms": frame.to_value(u.km / u.s).tolist(),
-        **({"noise_rms_jy_per_beam": plan.noise_rms.to_value(u.Jy / u.beam)} if plan.noise_rms is not None else {}),
+        "centre_kpc": orientation.centre.to_value(u.kpc).tolist(),
+        "frame_velocity_kms": orientation.frame_velocity.to_value(u.km / u.s).tolist(),
     }
     observed = dataclasses.replace(observed, provenance={**observed.provenance, **provenance})
+    noise = plan.noise_rms
     summary = {
-        "n_particles_selected": totals["n_selected"],
-        "hi_mass_selected": totals["hi_mass_msun"] * u.Msun,
+        "n_particles_selected": rendered.n_selected,
+        "hi_mass_selected": rendered.hi_mass,
         "hi_mass_recovered": recovered.to(u.Msun),
-        "outside_fraction": outside,
-        "noise_rms": plan.noise_rms,
-        "peak_snr": None if plan.noise_rms is None else peak_model / plan.noise_rms.to_value(u.Jy / u.beam),
+        "outside_fraction": 1.0 - rendered.deposited_weight / rendered.total_weight,
+        "noise_rms": noise,
+        "peak_snr": None if noise is None else rendered.peak_model / noise.to_value(u.Jy / u.beam),
         "w50": line_width_w50(velocity, profile),
-        "voxel_contributions": totals["contributions"],
+        "voxel_contributions": rendered.n_contributions,
+        "velocity": velocity,
+        "profile": profile,
     }
-    result = RunResult(cube=observed, moment0=map0, column_density=column, paths=paths, summary=summary)
-    if write:
-        _write_outputs(result, plan, velocity, profile, overwrite=overwrite)
-    return result
+    return RunResult(cube=observed, moment0=map0, column_density=column, paths=paths or {}, summary=summary)
 
 
-def _write_outputs(result, plan, velocity, profile, *, overwrite):
+def _write_outputs(result, plan, *, overwrite):
     config, paths, cube = plan.config, result.paths, result.cube
+    velocity, profile = result.summary["velocity"], result.summary["profile"]
     text = config.to_toml()
     write_cube(cube, paths["cube"], overwrite=overwrite, config_text=text)
     image_wcs = make_image_wcs(plan.grid)

@@ -57,7 +57,7 @@ chunk_particles = 64
 
 [geometry]
 centre = "centre_of_mass"
-selection_radius = "12 kpc"
+selection_radius = "6 kpc"
 orientation = "simulation_axes"
 inclination = "30 deg"
 position_angle = "20 deg"

@@ -161,6 +161,9 @@ PARAMS = (
           "kernel support radius in units of the smoothing length (2 for most codes, 1 if h is the support)",
           positive=True),
     # --- emission -----------------------------------------------------------------
+    Param("grid.line_profile", "str", "gaussian",
+          "spectral shape of each particle's line: thermal plus turbulent Gaussian, or all in one channel",
+          choices=("gaussian", "delta")),
     Param("emission.turbulent_dispersion", "velocity", "0 km/s",
           "one-dimensional turbulent velocity dispersion added in quadrature to the thermal width", minimum=0.0),
     Param("emission.unit", "str", "Jy/beam", "unit of the written cube", choices=("Jy/beam", "K")),

@@ -329,7 +329,7 @@ def test_rotation_matrix_accepts_eight_significant_digits():
      "galaxy.toml:snapshot.fields.mass.units: unknown key; did you mean 'snapshot.fields.mass.unit'?"),
     ({"grid": {"major": "30 arcsec"}}, "galaxy.toml:grid.major: unknown key; did you mean 'beam.major'?"),
     ({"grid": {"zzz": 1}}, "galaxy.toml:grid.zzz: unknown key; the valid keys in [grid] are: n_x, n_y, n_chan, "
-                           "pixel_scale, channel_width, projection, spectral_axis, kernel, support_factor"),
+                           "pixel_scale, channel_width, projection, spectral_axis, kernel, support_factor, line_profile"),
     ({"zzz": 1}, "galaxy.toml:zzz: unknown section; the valid sections are: snapshot, geometry, observer, grid, "
                  "emission, beam, noise, output, run"),
 ])

@@ -1,0 +1,68 @@
+"""The run path: channel slabs, line profiles, output units, planning refusals."""
+
+import shutil
+import subprocess
+import warnings
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.tests.helper import assert_quantity_allclose
+
+from pipeline.chain import orient_galaxy, plan_run, render_channels, run
+from pipeline.config import load_config
+from pipeline.errors import ParticlesOutsideFieldWarning
+
+
+def _plan(path, *overrides):
+    return plan_run(load_config(path, overrides=list(overrides)))
+
+
+def test_channel_slabs_stacked_equal_the_whole_cube_noise_included(small_run_config):
+    # Slab-parallel rendering must not change the answer: deposit, beam and (seeded) noise are
+    # per channel, so the stacked slabs equal the cube made whole to round-off.
+    plan = _plan(small_run_config())
+    orientation = orient_galaxy(plan)
+    whole = render_channels(plan, orientation).cube.data
+    slabs = [render_channels(plan, orientation, channels=r).cube.data for r in [(0, 5), (5, 6), (6, 17)]]
+    np.testing.assert_allclose(np.concatenate(slabs), whole, rtol=0, atol=1e-12 * np.abs(whole).max())
+
+
+def test_render_channels_refuses_a_range_outside_the_band(small_run_config):
+    plan = _plan(small_run_config())
+    with pytest.raises(ValueError, match="'channels' must satisfy 0 <= first < stop <= 17"):
+        render_channels(plan, orient_galaxy(plan), channels=(3, 30))
+
+
+def test_delta_line_puts_each_particle_in_one_channel(make_snapshot, small_run_config, tmp_path):
+    # One particle at rest in the frame: with a delta profile all its flux is in a single channel.
+    config = small_run_config(snapshot_kwargs={})
+    make_snapshot(1, position=np.zeros((1, 3)), velocity=np.zeros((1, 3)), smoothing_length=np.array([0.5]))
+    plan = _plan(config, "grid.line_profile=delta", "noise.mode=none",
+                 "geometry.frame=explicit",
+                 "geometry.frame_velocity=['0 km/s', '0 km/s', '0 km/s']")
+    cube = render_channels(plan, orient_galaxy(plan)).cube
+    per_channel = cube.data.sum(axis=(1, 2))
+    assert np.count_nonzero(per_channel) == 1
+    assert np.argmax(per_channel) == 8          # the systemic velocity sits on the central channel
+
+
+@pytest.mark.fitsverify
+def test_cube_in_kelvin_is_written_clean_and_matches_astropy(small_run_config, tmp_path):
+    # Jy/beam -> K per channel through astropy's brightness_temperature equivalency (HI-07).
+    config = load_config(small_run_config(), overrides=[])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ParticlesOutsideFieldWarning)   # the small snapshot spills out of band
+        jy = run(config, write=False)
+        kelvin = run(config.replace(["emission.unit=K"]), write=True)
+    frequencies = np.asarray(jy.cube.wcs.spectral.pixel_to_world_values(np.arange(17))) * u.Hz
+    expected = [(jy.cube.data[k] * u.Jy / u.beam).to(u.K, u.brightness_temperature(frequencies[k], jy.cube.beam.solid_angle))
+                for k in range(17)]
+    assert_quantity_allclose(kelvin.cube.quantity, u.Quantity(expected), rtol=1e-6)
+    assert kelvin.moment0.unit == u.K * u.km / u.s
+    if shutil.which("fitsverify") is None:
+        pytest.skip("fitsverify is not installed")
+    for path in kelvin.paths.values():
+        if path.suffix == ".fits":
+            report = subprocess.run(["fitsverify", str(path)], capture_output=True, text=True).stdout
+            assert "Verification found 0 warning(s) and 0 error(s)" in report   # HEASARC fitsverify
