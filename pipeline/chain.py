@@ -33,7 +33,8 @@ from pipeline.io import atomic_output, check_free_space, check_writable, write_c
 from pipeline.particles import FieldSource, iter_positions, open_snapshot, select_sphere
 from pipeline.units import HI_REST_FREQUENCY
 
-__all__ = ["RunPlan", "RunResult", "Orientation", "RenderedChannels", "plan_run", "orient_galaxy",
+__all__ = ["RunPlan", "RunResult", "Orientation", "RenderedChannels", "open_configured_snapshot", "plan_run",
+           "orient_galaxy",
            "render_channels", "summarise", "run", "output_paths"]
 
 # Bytes held per particle of a chunk while it is projected and deposited: the
@@ -120,6 +121,21 @@ def _field_sources(config):
     return sources
 
 
+def open_configured_snapshot(config):
+    """Open the snapshot a config names, with its field map and cosmology factors.
+
+    Returns
+    -------
+    `~pipeline.particles.Snapshot`
+    """
+    return open_snapshot(config["snapshot.path"], fields=_field_sources(config),
+                         little_h=config["snapshot.little_h"],
+                         little_h_attribute=config["snapshot.little_h_attribute"],
+                         scale_factor=config["snapshot.scale_factor"],
+                         scale_factor_attribute=config["snapshot.scale_factor_attribute"],
+                         chunk_particles=config["snapshot.chunk_particles"])
+
+
 def _noise_rms(config, grid):
     mode = config["noise.mode"]
     if mode == "none":
@@ -159,12 +175,16 @@ def _typical_temperature(snapshot):
     return chunk.temperature_k[order][np.searchsorted(cumulative, 0.5 * cumulative[-1])] * u.K
 
 
-def plan_run(config) -> RunPlan:
+def plan_run(config, *, snapshot=None) -> RunPlan:
     """Resolve a validated config into specs and check the run is feasible.
 
     Parameters
     ----------
     config : `~pipeline.config.RunConfig`
+    snapshot : `~pipeline.particles.Snapshot`, optional
+        An already opened snapshot (or an in-memory one with the same
+        interface) to use instead of opening ``snapshot.path``; batch runs pass
+        one so that several views share one read.
 
     Returns
     -------
@@ -181,12 +201,8 @@ def plan_run(config) -> RunPlan:
     -----
     UndersampledBeamWarning, FieldTooSmallWarning, ChannelTooWideWarning
     """
-    snapshot = open_snapshot(config["snapshot.path"], fields=_field_sources(config),
-                             little_h=config["snapshot.little_h"],
-                             little_h_attribute=config["snapshot.little_h_attribute"],
-                             scale_factor=config["snapshot.scale_factor"],
-                             scale_factor_attribute=config["snapshot.scale_factor_attribute"],
-                             chunk_particles=config["snapshot.chunk_particles"])
+    if snapshot is None:
+        snapshot = open_configured_snapshot(config)
     distances = resolve_distances(distance=config["observer.distance"],
                                   redshift=config["observer.redshift"],
                                   cosmology=config["observer.cosmology"],
@@ -413,7 +429,7 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
                             total_weight=total, deposited_weight=deposited, n_contributions=contributions)
 
 
-def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) -> RunResult:
+def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, snapshot=None) -> RunResult:
     """Make the synthetic observation a config describes.
 
     Parameters
@@ -430,6 +446,8 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) 
     progress : callable, optional
         Called as ``progress(n_read, n_total)`` after each chunk, with the
         particles in that chunk and in the whole snapshot.
+    snapshot : `~pipeline.particles.Snapshot`, optional
+        Passed to :func:`plan_run`.
 
     Returns
     -------
@@ -441,7 +459,7 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None) 
     >>> result = run(load_config("configs/demo.toml"), write=False)  # doctest: +SKIP
     >>> result.cube.wcs, result.cube.unit                  # doctest: +SKIP
     """
-    plan = plan_run(config)
+    plan = plan_run(config, snapshot=snapshot)
     paths = output_paths(config, output_dir=output_dir) if write else {}
     if write:
         _check_outputs(paths, plan, overwrite=overwrite)
