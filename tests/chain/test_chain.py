@@ -66,3 +66,25 @@ def test_cube_in_kelvin_is_written_clean_and_matches_astropy(small_run_config, t
         if path.suffix == ".fits":
             report = subprocess.run(["fitsverify", str(path)], capture_output=True, text=True).stdout
             assert "Verification found 0 warning(s) and 0 error(s)" in report   # HEASARC fitsverify
+
+
+@pytest.mark.slow
+def test_estimated_peak_memory_bounds_the_measured_peak(small_run_config, tmp_path):
+    # The plan's estimate must not be optimistic: run the CLI in a child process and compare its
+    # peak resident set (getrusage ru_maxrss, kB on Linux) with the estimate for the same config.
+    import resource
+    import sys
+
+    overrides = ["grid.n_x=256", "grid.n_y=192", "grid.n_chan=64", "grid.pixel_scale=4 arcsec",
+                 "beam.major=20 arcsec", "beam.minor=16 arcsec"]
+    config = small_run_config()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ParticlesOutsideFieldWarning)
+        estimate = _plan(config, *overrides).peak_memory.to_value(u.byte)
+    argv = [sys.executable, "-m", "pipeline", "run", str(config), "--quiet"]
+    for item in overrides:
+        argv += ["--set", item]
+    subprocess.run(argv, check=True, capture_output=True)
+    measured = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024
+    assert measured <= estimate, (measured, estimate)
+    assert measured >= 0.5 * estimate, (measured, estimate)   # and not uselessly pessimistic
