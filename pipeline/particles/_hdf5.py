@@ -164,8 +164,9 @@ def iter_positions(snapshot, *, with_velocity=False):
 
     Parameters
     ----------
-    snapshot : Snapshot
-        An opened snapshot.
+    snapshot : Snapshot or MemorySnapshot
+        An opened snapshot, or one held in memory (whose chunks are then
+        served from memory).
     with_velocity : bool, optional
         Also read the velocities.
 
@@ -181,6 +182,10 @@ def iter_positions(snapshot, *, with_velocity=False):
     SnapshotError
         As for `Snapshot.iter_chunks`, for the quantities read.
     """
+    if not isinstance(snapshot, Snapshot):
+        for chunk in snapshot.iter_chunks():
+            yield chunk.position_kpc, chunk.mass_msun, chunk.velocity_kms if with_velocity else None
+        return
     names = ("position", "mass", "velocity") if with_velocity else ("position", "mass")
     for arrays in _iter_arrays(snapshot, names):
         yield arrays["position"], arrays["mass"], arrays.get("velocity")
