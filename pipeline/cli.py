@@ -59,6 +59,24 @@ def _build_parser():
     inspect.add_argument("file", type=Path, help="HDF5 snapshot or FITS file")
     _add_common(inspect)
 
+    batch = commands.add_parser(
+        "batch", help="run a sweep of jobs (snapshots x views x distances x instruments)",
+        description="Expand a batch file into jobs, run them on a local Dask cluster (or in this process, or on "
+                    "an existing cluster), keep a manifest so the batch can be resumed, and write a catalogue. "
+                    "Exit code 1 when a job failed.")
+    batch.add_argument("config", type=Path, help="batch TOML file")
+    batch.add_argument("--dry-run", action="store_true", help="list the jobs with the memory and disk each needs")
+    batch.add_argument("--workers", type=int, metavar="N",
+                       help="local worker processes (default: one per core); 1 runs in this process without Dask")
+    batch.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster whose scheduler is at ADDRESS")
+    batch.add_argument("--connect-timeout", type=float, default=10.0, metavar="SECONDS",
+                       help="seconds to wait for the scheduler to answer (default: 10)")
+    batch.add_argument("--resume", action="store_true", help="skip jobs whose outputs exist and verify")
+    batch.add_argument("--force", action="store_true",
+                       help="resume a manifest from another batch config, or start again over an earlier batch")
+    batch.add_argument("--output", type=Path, help="output folder (replaces batch.output_directory)")
+    _add_common(batch)
+
     demo = commands.add_parser("demo", help="generate the invented demo galaxy and observe it",
                                description=f"Write an invented disc galaxy snapshot, run {DEMO_CONFIG.name} "
                                            "on it and print where the outputs are.")
@@ -168,7 +186,57 @@ def _command_demo(args):
     return 0
 
 
-_COMMANDS = {"run": _command_run, "check": _command_check, "inspect": _command_inspect, "demo": _command_demo}
+def _command_batch(args):
+    import os
+
+    from tqdm import tqdm
+
+    from pipeline.batch import connect_client, estimate_jobs, format_estimates, load_batch, run_batch
+    from pipeline.errors import ConfigError
+
+    batch = load_batch(args.config, output_dir=args.output)
+    if args.dry_run:
+        estimates = estimate_jobs(batch)
+        _say(args, format_estimates(estimates))
+        return 1 if any(estimate.error is not None for estimate in estimates) else 0
+    if args.workers is not None and args.workers < 1:
+        raise ConfigError(f"--workers: expected a whole number of at least 1; got {args.workers}")
+    workers = args.workers or min(os.cpu_count() or 1, len(batch.jobs))
+    bar = tqdm(desc="batch", unit="job", disable=args.quiet or not sys.stderr.isatty())
+
+    def advance(record, n_finished, n_to_run):
+        bar.total = n_to_run
+        bar.set_postfix_str(f"last {record['name']} {record['status']}")
+        bar.update(1)
+
+    options = dict(resume=args.resume, force=args.force, progress=advance)
+    try:
+        if args.scheduler is None and not batch.cluster and workers == 1:
+            result = run_batch(batch, **options)
+        else:
+            scheduler_options = ({"scheduler": args.scheduler} if args.scheduler is not None
+                                 else {"cluster": batch.cluster} if batch.cluster else {"workers": workers})
+            with connect_client(timeout=args.connect_timeout, **scheduler_options) as client:
+                result = run_batch(batch, client=client, **options)
+    finally:
+        bar.close()
+    n_done = sum(record["status"] == "done" for record in result.records) - len(result.skipped)
+    _say(args, f"{len(batch.jobs)} job(s): {n_done} done, {len(result.skipped)} skipped (complete), "
+               f"{len(result.failed)} failed")
+    _say(args, f"  manifest            {batch.output_dir / 'manifest.json'}")
+    _say(args, f"  catalogue           {result.catalogue}")
+    _say(args, f"  plot                {result.plot}")
+    if result.failed:
+        errors = {record["name"]: record["error"] for record in result.records if record["status"] != "done"}
+        print(f"cubewright: {len(result.failed)} job(s) failed: {', '.join(result.failed)}", file=sys.stderr)
+        for name in result.failed:
+            print(f"  {name}: {errors[name]}", file=sys.stderr)
+        return 1
+    return 0
+
+
+_COMMANDS = {"run": _command_run, "check": _command_check, "inspect": _command_inspect, "batch": _command_batch,
+             "demo": _command_demo}
 
 
 def main(argv=None) -> int:

@@ -1,7 +1,7 @@
 """Analysis of cubes: moment maps, line profiles, widths, previews."""
 
 from ._moments import global_profile, integrated_flux, line_width_w50, moment0
-from ._plots import plot_preview
+from ._plots import plot_batch_summary, plot_preview
 from ._spectral import channel_frequencies, channel_radio_velocities
 
 __all__ = [
@@ -10,6 +10,7 @@ __all__ = [
     "integrated_flux",
     "line_width_w50",
     "plot_preview",
+    "plot_batch_summary",
     "channel_frequencies",
     "channel_radio_velocities",
 ]

@@ -4,7 +4,7 @@ import astropy.units as u
 import numpy as np
 from astropy.wcs.utils import proj_plane_pixel_scales
 
-__all__ = ["plot_preview"]
+__all__ = ["plot_preview", "plot_batch_summary"]
 
 
 def plot_preview(moment_map, image_wcs, velocity, flux_density, path, *, beam=None, title=""):
@@ -67,4 +67,64 @@ def plot_preview(moment_map, image_wcs, velocity, flux_density, path, *, beam=No
         figure.suptitle(title)
     figure.tight_layout()
     figure.savefig(path, dpi=110, format="png")
+    plt.close(figure)
+
+
+def plot_batch_summary(table, path, *, detection_threshold=None):
+    """Write a 2 x 2 PNG of integrated S/N and recovered HI mass against inclination and distance.
+
+    Parameters
+    ----------
+    table : `~astropy.table.Table`
+        Batch catalogue with columns ``inclination`` (deg), ``distance``
+        (Mpc), ``integrated_snr``, ``hi_mass_recovered`` (Msun) and
+        ``detected``; rows with NaN values are left out.
+    path : path-like
+        PNG file to write (the caller makes it atomic).
+    detection_threshold : float, optional
+        Drawn as a dashed line on the S/N panels.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from matplotlib.lines import Line2D
+    from matplotlib.ticker import FuncFormatter
+
+    inclination = np.asarray(table["inclination"], dtype=float)
+    distance = np.asarray(table["distance"], dtype=float)
+    snr = np.asarray(table["integrated_snr"], dtype=float)
+    mass = np.asarray(table["hi_mass_recovered"], dtype=float)
+    detected = np.asarray(table["detected"], dtype=bool)
+    figure, axes = plt.subplots(2, 2, figsize=(11, 8.5), sharex="col")
+    panels = ((0, 0, inclination, snr, distance, "Distance (Mpc)"), (0, 1, distance, snr, inclination, "Inclination (deg)"),
+              (1, 0, inclination, mass, distance, "Distance (Mpc)"), (1, 1, distance, mass, inclination, "Inclination (deg)"))
+    for row, column, x, y, colour, colour_label in panels:
+        axis = axes[row, column]
+        good = np.isfinite(x) & np.isfinite(y) & np.isfinite(colour)
+        positive = good & (y > 0)
+        scatter = None
+        for is_detected, marker, label in ((True, "o", "detected"), (False, "x", "not detected")):
+            chosen = positive & (detected == is_detected)
+            if chosen.any():
+                scatter = axis.scatter(x[chosen], y[chosen], c=colour[chosen], marker=marker, cmap="viridis",
+                                       vmin=np.nanmin(colour[good]), vmax=np.nanmax(colour[good]), label=label)
+        if scatter is not None:
+            figure.colorbar(scatter, ax=axis).set_label(colour_label)
+            handles = [Line2D([], [], color="0.3", marker=marker, linestyle="", label=label)
+                       for marker, label in (("o", "detected"), ("x", "not detected"))]
+            axis.legend(handles=handles, loc="best", fontsize="small")
+        axis.set_yscale("log")
+        if row == 0:
+            plain = FuncFormatter(lambda value, _: f"{value:g}")
+            axis.yaxis.set_major_formatter(plain)
+            axis.yaxis.set_minor_formatter(plain)
+        if row == 0 and detection_threshold is not None:
+            axis.axhline(detection_threshold, color="0.4", linestyle="--", linewidth=1)
+        axis.set_ylabel("Integrated S/N" if row == 0 else r"Recovered HI mass ($M_\odot$)")
+        if row == 1:
+            axis.set_xlabel("Inclination (deg)" if column == 0 else "Distance (Mpc)")
+    figure.suptitle("Batch summary: integrated S/N and recovered HI mass")
+    figure.tight_layout()
+    figure.savefig(path, dpi=100, format="png")
     plt.close(figure)

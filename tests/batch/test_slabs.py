@@ -1,0 +1,91 @@
+"""A cube over the memory budget is rendered in channel slabs into one FITS file equal to the whole cube."""
+
+import warnings
+
+import astropy.units as u
+import numpy as np
+import pytest
+from astropy.io import fits
+
+from pipeline.batch import estimate_jobs, load_batch, run_batch
+from pipeline.chain import plan_run, run
+from pipeline.config import load_config
+from pipeline.errors import ParticlesOutsideFieldWarning
+
+
+def _peak(config, n_chan):
+    return plan_run(config.replace([f"grid.n_chan={n_chan}", "run.memory_budget=1e9 GiB"])).peak_memory.to(u.MiB)
+
+
+@pytest.fixture
+def slab_batch(write_batch, small_run_config):
+    """A one-job batch whose budget fits 6 of the 17 channels, and the job's run config."""
+    path = write_batch("")
+    base = load_config(small_run_config())
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        budget = _peak(base, 6)
+    text = path.read_text() + f'[sweep.keys.run]\nmemory_budget = ["{float(budget.value)!r} MiB"]\n'
+    path.write_text(text)
+    return path
+
+
+def _whole_cube(batch, tmp_path):
+    """The same job made by the single-process run path, with a budget that fits the whole cube."""
+    config = batch.job_config(batch.jobs[0], extra=["run.memory_budget=1e9 GiB", f"output.directory='{tmp_path}'",
+                                                    "output.name='whole'"])
+    with pytest.warns(ParticlesOutsideFieldWarning):
+        result = run(config)
+    return fits.getdata(result.paths["cube"]), result
+
+
+def test_slab_job_assembles_the_single_process_cube(slab_batch, tmp_path, fitsverify):
+    batch = load_batch(slab_batch)
+    (estimate,) = estimate_jobs(batch)
+    assert estimate.n_slabs == 3 and estimate.error is None
+    result = run_batch(batch)
+    (record,) = result.records
+    assert record["status"] == "done" and record["measurements"]["n_slabs"] == 3
+    assert list(record["outputs"]) == ["cube"]
+    slabbed_path = batch.output_dir / record["outputs"]["cube"]["path"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with fits.open(slabbed_path, checksum=True) as slabbed:
+            data = slabbed[0].data
+            header = slabbed[0].header
+    whole, whole_result = _whole_cube(batch, tmp_path)
+    # Float32 of the same float64 values: slabs convolve and add noise channel by channel exactly as the
+    # whole cube does, to round-off far below float32 resolution.
+    np.testing.assert_allclose(data, whole, rtol=0, atol=1e-6 * np.abs(whole).max())
+    for keyword in ("BUNIT", "BMAJ", "BMIN", "BPA", "NOISERMS", "CRVAL3", "CDELT3", "CTYPE1", "NAXIS3"):
+        assert header[keyword] == fits.getheader(whole_result.paths["cube"])[keyword]
+    summary = whole_result.summary
+    assert record["measurements"]["hi_mass_recovered_msun"] == pytest.approx(
+        summary["hi_mass_recovered"].to_value(u.Msun), rel=1e-6)
+    assert record["measurements"]["w50_kms"] == pytest.approx(summary["w50"].to_value(u.km / u.s), rel=1e-6)
+    assert record["measurements"]["peak_snr"] == pytest.approx(summary["peak_snr"], rel=1e-9)
+    n_warnings, n_errors, report = fitsverify(slabbed_path)  # HEASARC fitsverify (check-values FW-10)
+    assert (n_warnings, n_errors) == (0, 0), report
+
+
+@pytest.mark.dask
+def test_slabs_on_two_workers_equal_slabs_in_process(slab_batch, tmp_path):
+    from distributed import Client, LocalCluster
+
+    here = run_batch(load_batch(slab_batch, output_dir=tmp_path / "here"))
+    batch = load_batch(slab_batch, output_dir=tmp_path / "dask")
+    with LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=None) as cluster, Client(cluster) as client:
+        on_dask = run_batch(batch, client=client)
+    assert on_dask.records[0]["status"] == "done", on_dask.records[0]["error"]
+    path = on_dask.records[0]["outputs"]["cube"]["path"]
+    assert fits.getdata(tmp_path / "dask" / path).tobytes() == fits.getdata(tmp_path / "here" / path).tobytes()
+    assert on_dask.records[0]["measurements"] == here.records[0]["measurements"]
+
+
+def test_a_budget_too_small_for_one_channel_fails_the_job_with_the_reason(write_batch):
+    batch = load_batch(write_batch('[sweep.keys.run]\nmemory_budget = ["1 MiB"]\n'))
+    (record,) = run_batch(batch).records
+    assert record["status"] == "failed"
+    assert "MemoryBudgetError" in record["error"] and "even one channel" in record["error"]
+    (estimate,) = estimate_jobs(batch)
+    assert "even one channel" in estimate.error
