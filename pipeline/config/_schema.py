@@ -156,9 +156,11 @@ PARAMS = (
     Param("grid.projection", "str", "SIN", "celestial projection of the WCS", choices=("SIN", "TAN")),
     Param("grid.spectral_axis", "str", "FREQ", "spectral axis written to FITS", choices=("FREQ", "VRAD")),
     Param("grid.kernel", "str", "cubic_spline", "SPH kernel used to spread each particle",
-          choices=("cubic_spline", "wendland_c2")),
-    Param("grid.support_factor", "float", 2.0,
-          "kernel support radius in units of the smoothing length (2 for most codes, 1 if h is the support)",
+          choices=("cubic_spline", "quintic_spline", "wendland_c2", "wendland_c4", "wendland_c6",
+                   "gaussian")),
+    Param("grid.support_factor", "float", None,
+          "kernel support radius in units of the smoothing length (unset: the kernel's usual factor, "
+          "2 for cubic_spline and Wendland, 3 for quintic_spline and gaussian; 1 if h is the support)",
           positive=True),
     # --- emission -----------------------------------------------------------------
     Param("grid.line_profile", "str", "gaussian",

@@ -6,18 +6,29 @@ when the snapshot stores the support radius itself).
 """
 
 import functools
+import math
 
 import numpy as np
 
-from ._families import _as_radius, _get_family
+from ._families import GAUSSIAN_SIGMA_OVER_SUPPORT, _as_radius, _Family, _get_family
 
-__all__ = ["column_profile", "cumulative_column_table"]
+__all__ = ["column_profile", "quadrant_column_table"]
 
 # Gauss-Legendre points per cell and per axis used to integrate F over one table cell.
 _CELL_QUADRATURE_ORDER = 4
 
 # Rows of table cells evaluated at once while building a table (bounds the temporaries).
 _ROWS_PER_BLOCK = 64
+
+# Impact parameter (units of H) from which column_profile integrates the polynomial kernels by
+# Gauss-Legendre quadrature along the chord instead of the closed form: out there the column is
+# small and the closed form's cancellation (absolute error ~1e-14 times the coefficients) would
+# dominate its relative error.
+_EDGE_START = 0.5
+
+# Gauss-Legendre nodes per chord segment in that quadrature.  With b >= 1/2 the integrand is
+# analytic within 1/2 of each segment (at most 0.87 long), so the rule converges to round-off.
+_CHORD_QUADRATURE_ORDER = 24
 
 
 def _column_piece(b: np.ndarray, support: float, coefficients: tuple[float, ...]) -> np.ndarray:
@@ -38,6 +49,38 @@ def _column_piece(b: np.ndarray, support: float, coefficients: tuple[float, ...]
         if c_n != 0.0:
             total += c_n * integral
     return np.where(inside, 2.0 * total, 0.0)
+
+
+def _column_closed_form(record: _Family, b: np.ndarray) -> np.ndarray:
+    """Return ``F H**2`` in closed form, accurate to ~1e-12 absolute (the tables use this)."""
+    if not record.pieces:
+        # Truncated Gaussian: int_{-Z}^{Z} exp(-(b^2 + z^2) / 2 s^2) dz, Z = sqrt(1 - b^2).
+        from scipy.special import erf
+
+        s = GAUSSIAN_SIGMA_OVER_SUPPORT
+        half_chord = np.sqrt(np.maximum(1.0 - b * b, 0.0))
+        chord = math.sqrt(2.0 * math.pi) * s * erf(half_chord / (math.sqrt(2.0) * s))
+        return record.norm_3d * np.exp(-0.5 * (b / s) ** 2) * chord
+    total = np.zeros_like(b)
+    for support, coefficients in record.pieces:
+        total += _column_piece(b, support, coefficients)
+    return record.norm_3d * total
+
+
+def _column_by_chord_quadrature(record: _Family, b: np.ndarray) -> np.ndarray:
+    """Return ``F H**2`` by Gauss-Legendre quadrature of w along the chord, split where w changes piece."""
+    nodes, weights = np.polynomial.legendre.leggauss(_CHORD_QUADRATURE_ORDER)
+    b = b[:, None]
+    half_chord = np.sqrt(np.maximum(1.0 - b * b, 0.0))
+    # Chord segments [z_k, z_{k+1}]: 0, the crossings of the piece breaks inside the chord, Z.
+    crossings = [np.sqrt(np.maximum(a * a - b * b, 0.0)) for a in sorted(record.breaks)]
+    ends = [np.zeros_like(b), *crossings, half_chord]
+    total = np.zeros(b.shape[0])
+    for low, high in zip(ends[:-1], ends[1:]):
+        z = 0.5 * (low + high) + 0.5 * (high - low) * nodes
+        q = np.minimum(np.sqrt(b * b + z * z), 1.0)
+        total += 0.5 * (high - low)[:, 0] * (record.shape(q) @ weights)
+    return 2.0 * record.norm_3d * np.where(b[:, 0] < 1.0, total, 0.0)
 
 
 def column_profile(family: str, b) -> np.ndarray:
@@ -64,13 +107,16 @@ def column_profile(family: str, b) -> np.ndarray:
 
     Notes
     -----
-    The kernel is a sum of truncated polynomials ``sum(c_n q^n)`` for
-    ``q < a``; each power is integrated along the chord ``|z| < Z =
-    sqrt(a^2 - b^2)`` in closed form with the recurrence
+    For ``b < 1/2`` the polynomial kernels (sums of truncated polynomials
+    ``sum(c_n q^n)`` for ``q < a``) are integrated along the chord
+    ``|z| < Z = sqrt(a^2 - b^2)`` in closed form with the recurrence
     ``I_n = (Z a^n + n b^2 I_{n-2}) / (n + 1)``, ``I_0 = Z``,
-    ``I_{-1} = asinh(Z / b)``.  Absolute accuracy is about 1e-14 (cancellation
-    between the polynomial terms), so values within ~1e-3 of the support edge
-    carry a larger relative error; negative round-off is clipped to zero.
+    ``I_{-1} = asinh(Z / b)``.  For ``b >= 1/2``, where the column is small
+    and that sum would lose relative accuracy to cancellation, the factored
+    ``w`` is integrated along the chord by Gauss-Legendre quadrature split at
+    the piece boundaries.  The truncated Gaussian has the closed form
+    ``C exp(-b^2 / 2 s^2) s sqrt(2 pi) erf(Z / (s sqrt 2))``, ``Z = sqrt(1 - b^2)``.
+    Relative accuracy is about 1e-12 everywhere inside the support.
 
     Examples
     --------
@@ -79,73 +125,76 @@ def column_profile(family: str, b) -> np.ndarray:
     """
     record = _get_family(family)
     b = _as_radius(b, name="b")
-    total = np.zeros_like(b)
-    for support, coefficients in record.pieces:
-        total += _column_piece(b, support, coefficients)
-    return np.maximum(record.norm_3d * total, 0.0)
+    flat = b.reshape(-1)
+    values = _column_closed_form(record, flat)
+    edge = (flat >= _EDGE_START) & (flat < 1.0)
+    if record.pieces and edge.any():
+        values[edge] = _column_by_chord_quadrature(record, flat[edge])
+    return np.maximum(values, 0.0).reshape(b.shape)
 
 
 @functools.lru_cache(maxsize=8)
-def cumulative_column_table(family: str, n: int) -> np.ndarray:
-    """Return the cumulative integral of the column profile on an ``n`` x ``n`` grid.
+def quadrant_column_table(family: str, n: int) -> np.ndarray:
+    """Return the column profile integrated from the particle's centre, on an ``n`` x ``n`` grid.
 
     Parameters
     ----------
     family : str
         One of :data:`~pipeline.kernels.KERNEL_FAMILIES`.
     n : int
-        Nodes per axis, odd and at least 3; node ``i`` is at
-        ``-1 + 2 i / (n - 1)`` (units of the support radius ``H``), so the
-        grid is ``numpy.linspace(-1, 1, n)`` and includes 0.
+        Nodes per axis, at least 2; node ``i`` is at ``u_i = i / (n - 1)``
+        (units of the support radius ``H``), so the grid is
+        ``numpy.linspace(0, 1, n)``.
 
     Returns
     -------
-    numpy.ndarray, shape (n, n), read-only
-        ``table[j, i] = C(x_i, y_j) = int_{-1}^{x_i} int_{-1}^{y_j} F dy dx``
-        with ``F`` the column profile in units of ``H**-2``.  The low edges
-        (``i = 0`` or ``j = 0``) are exactly 0 and the corner ``[-1, -1]`` is
-        exactly 1.  ``C`` is symmetric, ``C(x, y) = C(y, x)``.
+    numpy.ndarray, float64, shape (n, n), read-only
+        ``table[j, i] = Q(u_i, u_j) = int_0^{u_i} int_0^{u_j} F dy dx`` with
+        ``F`` the column profile in units of ``H**-2``: the kernel mass in
+        the rectangle between the centre and ``(u_i, u_j)``.  The edges
+        ``i = 0`` and ``j = 0`` are exactly 0 and the corner is exactly 1/4.
+        ``Q`` is symmetric, ``Q(u, v) = Q(v, u)``.
 
     Raises
     ------
     ValueError
-        If ``family`` is unknown or ``n`` is not an odd integer >= 3.
+        If ``family`` is unknown or ``n`` is not an integer >= 2.
 
     Notes
     -----
-    Each table cell's share of ``F`` is integrated with a 4 x 4
-    Gauss-Legendre rule on one quadrant (the profile is radial, so the other
-    quadrants are mirror images) and the cells are summed cumulatively.  The
-    total before normalisation differs from 1 by the quadrature error (below
-    1e-9 for ``n >= 257``); dividing by it makes the corner exactly 1, so
-    pixel shares taken as corner differences sum to exactly 1 over the
+    The profile is radial, so ``G(x, y) = sign(x) sign(y) Q(|x|, |y|)`` (the
+    mass between the centre and ``(x, y)``, signed) gives the kernel mass of
+    any rectangle ``[x0, x1] x [y0, y1]`` as the mixed difference
+    ``G(x1, y1) - G(x0, y1) - G(x1, y0) + G(x0, y0)``; one quadrant holds
+    everything.  Each table cell's share of ``F`` is integrated with a 4 x 4
+    Gauss-Legendre rule and the cells are summed cumulatively.  The total
+    before normalisation differs from 1/4 by the quadrature error (below
+    1e-9 for ``n >= 129``); dividing by it makes the corner exactly 1/4, so
+    pixel shares taken as mixed differences sum to exactly 1 over the
     support.  Results are cached; the array is shared, hence read-only.
 
     Examples
     --------
-    >>> table = cumulative_column_table("wendland_c2", 65)
-    >>> float(table[-1, -1]), float(table[0, 10]), round(float(table[32, 32]), 12)
-    (1.0, 0.0, 0.25)
+    >>> table = quadrant_column_table("wendland_c2", 33)
+    >>> float(table[-1, -1]), float(table[0, 10]), table.shape
+    (0.25, 0.0, (33, 33))
     """
-    _get_family(family)
-    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 3 or n % 2 == 0:
-        raise ValueError(f"'n' must be an odd integer >= 3 (e.g. 1025); got {n!r}")
-    n = int(n)
-    n_half = (n - 1) // 2
+    record = _get_family(family)
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
+        raise ValueError(f"'n' must be an integer >= 2 (e.g. 513); got {n!r}")
+    n_cells = int(n) - 1
     nodes, weights = np.polynomial.legendre.leggauss(_CELL_QUADRATURE_ORDER)
-    # Quadrature abscissae in every quadrant cell along one axis: shape (n_half, order).
-    abscissae = (np.arange(n_half)[:, None] + 0.5 * (nodes[None, :] + 1.0)) / n_half
-    weight_2d = np.outer(weights, weights) * (0.5 / n_half) ** 2
-    quadrant = np.empty((n_half, n_half))
-    for start in range(0, n_half, _ROWS_PER_BLOCK):
+    # Quadrature abscissae in every cell along one axis: shape (n_cells, order).
+    abscissae = (np.arange(n_cells)[:, None] + 0.5 * (nodes[None, :] + 1.0)) / n_cells
+    weight_2d = np.outer(weights, weights) * (0.5 / n_cells) ** 2
+    cells = np.empty((n_cells, n_cells))
+    for start in range(0, n_cells, _ROWS_PER_BLOCK):
         y = abscissae[start:start + _ROWS_PER_BLOCK]
         radius = np.sqrt(y[:, None, :, None] ** 2 + abscissae[None, :, None, :] ** 2)
-        values = column_profile(family, np.minimum(radius, 1.0))
-        quadrant[start:start + _ROWS_PER_BLOCK] = np.einsum("yxkl,kl->yx", values, weight_2d)
-    # Cells of the full grid, low y and low x first: the quadrant mirrored about both axes.
-    cells = np.block([[quadrant[::-1, ::-1], quadrant[::-1, :]], [quadrant[:, ::-1], quadrant]])
-    table = np.zeros((n, n))
+        values = np.maximum(_column_closed_form(record, np.minimum(radius, 1.0)), 0.0)
+        cells[start:start + _ROWS_PER_BLOCK] = np.einsum("yxkl,kl->yx", values, weight_2d)
+    table = np.zeros((n_cells + 1, n_cells + 1))
     table[1:, 1:] = np.cumsum(np.cumsum(cells, axis=0), axis=1)
-    table /= table[-1, -1]
+    table *= 0.25 / table[-1, -1]
     table.setflags(write=False)
     return table

@@ -231,8 +231,9 @@ def test_config_from_dict_does_not_keep_the_callers_objects():
     ("grid", {"support_factor": -2.0}, "galaxy.toml:grid.support_factor: expected a value greater than 0; got -2.0"),
     ("grid", {"projection": "sin"},
      "galaxy.toml:grid.projection: expected one of 'SIN', 'TAN'; got 'sin' (did you mean 'SIN'?)"),
-    ("grid", {"kernel": "gaussian"},
-     "galaxy.toml:grid.kernel: expected one of 'cubic_spline', 'wendland_c2'; got 'gaussian'"),
+    ("grid", {"kernel": "top_hat"},
+     "galaxy.toml:grid.kernel: expected one of 'cubic_spline', 'quintic_spline', 'wendland_c2', "
+     "'wendland_c4', 'wendland_c6', 'gaussian'; got 'top_hat'"),
     ("output", {"moment0": 1}, "galaxy.toml:output.moment0: expected true or false; got 1"),
     ("output", {"name": ""}, "galaxy.toml:output.name: expected a non-empty string; got ''"),
     ("output", {"name": 2024}, "galaxy.toml:output.name: expected a non-empty string; got 2024"),

@@ -7,11 +7,15 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.integrate import quad
 from scipy.optimize import brentq
+from scipy.stats import chi
 
 from pipeline.kernels import KERNEL_FAMILIES, column_profile, kernel_3d
 
 # check-values SK-01..SK-03 tolerance for the kernel formulas.
 FORMULA_RTOL = 1e-9
+
+# Radii where a family changes piece, so quad integrates each piece smoothly.
+BREAKS = [1.0 / 3.0, 0.5, 2.0 / 3.0]
 
 
 def assert_matches_quoted(actual, quoted):
@@ -28,10 +32,41 @@ def test_cubic_spline_central_value_and_normalisation():
     assert_matches_quoted(kernel_3d("cubic_spline", 0.0), ["2.546479"])
 
 
-def test_wendland_c2_central_value_and_normalisation():
-    # SK-03 (Wendland 1995; Dehnen & Aly 2012, Table 1): w(0) = 1 and C = 21/(2 pi) = 3.342 254.
-    assert_allclose(kernel_3d("wendland_c2", 0.0), 21.0 / (2.0 * math.pi), rtol=FORMULA_RTOL)
-    assert_matches_quoted(kernel_3d("wendland_c2", 0.0), ["3.342254"])
+@pytest.mark.parametrize(("family", "norm", "w_at_zero", "quoted"), [
+    # SK-02 (Dehnen & Aly 2012, Table 1): C = 2187/(40 pi) = 17.403 593, w(0) = 66/243,
+    # W(0) H^3 = 4.726 902.
+    ("quintic_spline", 2187.0 / (40.0 * math.pi), 66.0 / 243.0, "4.726902"),
+    # SK-03 (Wendland 1995; Dehnen & Aly 2012, Table 1): w(0) = 1, C = 21/(2 pi) = 3.342 254,
+    # 495/(32 pi) = 4.923 856, 1365/(64 pi) = 6.788 953.
+    ("wendland_c2", 21.0 / (2.0 * math.pi), 1.0, "3.342254"),
+    ("wendland_c4", 495.0 / (32.0 * math.pi), 1.0, "4.923856"),
+    ("wendland_c6", 1365.0 / (64.0 * math.pi), 1.0, "6.788953"),
+])
+def test_central_value_and_normalisation(family, norm, w_at_zero, quoted):
+    assert_allclose(kernel_3d(family, 0.0), norm * w_at_zero, rtol=FORMULA_RTOL)
+    assert_matches_quoted(kernel_3d(family, 0.0), [quoted])
+
+
+def test_quintic_spline_matches_price_form():
+    # SK-02, Price 2012 form with support 3h: W h^3 = f(q) / (120 pi), f = (3 - q)^5 - 6 (2 - q)^5
+    # + 15 (1 - q)^5 (each term only where positive), q = r/h; ours is W H^3 with H = 3h.
+    q_h = np.linspace(0.0, 3.5, 351)
+    price = (np.maximum(3.0 - q_h, 0.0) ** 5 - 6.0 * np.maximum(2.0 - q_h, 0.0) ** 5
+             + 15.0 * np.maximum(1.0 - q_h, 0.0) ** 5) / (120.0 * math.pi)
+    assert_allclose(kernel_3d("quintic_spline", np.minimum(q_h / 3.0, 2.0)) / 27.0, price,
+                    rtol=FORMULA_RTOL, atol=1e-15)
+
+
+def test_gaussian_matches_monaghan_form_renormalised_after_the_cut():
+    # Gaussian kernel exp(-q^2) / (pi^(3/2) h^3), q = r/h (Monaghan 1992, from memory), cut at
+    # q = 3 (Price 2012, from memory) and divided by the mass kept inside the cut, which for a 3D
+    # Gaussian of sigma = h/sqrt(2) inside R = 3h is erf(3) - (6/sqrt(pi)) exp(-9) (chi
+    # distribution with 3 degrees of freedom; checked here against scipy.stats.chi).
+    kept = math.erf(3.0) - 6.0 / math.sqrt(math.pi) * math.exp(-9.0)
+    assert_allclose(kept, chi(3, scale=1.0 / math.sqrt(2.0)).cdf(3.0), rtol=1e-13)
+    q_h = np.linspace(0.0, 2.999, 300)
+    reference = np.exp(-q_h**2) / math.pi**1.5 / kept
+    assert_allclose(kernel_3d("gaussian", q_h / 3.0) / 27.0, reference, rtol=1e-12)
 
 
 def test_cubic_spline_matches_monaghan_form():
@@ -65,18 +100,38 @@ def test_wendland_c2_matches_support_2h_form():
     assert_allclose(kernel_3d("wendland_c2", q_h / 2.0) / 8.0, reference, rtol=FORMULA_RTOL, atol=1e-15)
 
 
-@pytest.mark.parametrize(("family", "h_over_sigma"), [("cubic_spline", math.sqrt(40.0 / 3.0)),
-                                                      ("wendland_c2", math.sqrt(15.0))])
+@pytest.mark.parametrize(("family", "h_over_sigma"), [
+    # SK-04 (Dehnen & Aly 2012, Table 1): H/sigma = 2 (H/h) with H/h for h = 2 sigma; the cubic, C2
+    # and C6 values have the closed forms sqrt(40/3), sqrt(15) and sqrt(24).
+    ("cubic_spline", math.sqrt(40.0 / 3.0)),
+    ("quintic_spline", 2.0 * 2.195775),
+    ("wendland_c2", math.sqrt(15.0)),
+    ("wendland_c4", 2.0 * 2.207940),
+    ("wendland_c6", math.sqrt(24.0)),
+    # The truncated Gaussian: sigma/H = 1/(3 sqrt 2) before the cut at r/sigma = 3 sqrt 2, which
+    # trims the per-axis second moment to E[r^2 | r < R] / 3 of the chi distribution with 3 degrees
+    # of freedom (scipy.stats.chi, conditional expectation).
+    ("gaussian", 3.0 * math.sqrt(2.0) / math.sqrt(
+        chi(3).expect(lambda r: r * r / 3.0, lb=0.0, ub=3.0 * math.sqrt(2.0), conditional=True))),
+])
 def test_gaussian_equivalent_sigma(family, h_over_sigma):
-    # SK-04 (Dehnen & Aly 2012, Table 1): H/sigma = sqrt(40/3) = 3.651 484 (cubic), sqrt(15) (C2),
-    # sigma^2 the per-axis second moment, (4 pi / 3) int q^4 W dq in units of H.
+    # sigma^2 is the per-axis second moment, (4 pi / 3) int q^4 W dq in units of H.
     second_moment = 4.0 * math.pi / 3.0 * quad(lambda q: q**4 * kernel_3d(family, q), 0.0, 1.0,
-                                               points=[0.5], epsabs=1e-14)[0]
+                                               points=BREAKS, epsabs=1e-14)[0]
     assert_allclose(1.0 / math.sqrt(second_moment), h_over_sigma, rtol=1e-6)
-    # The column keeps the per-axis moment: int b^2 F 2 pi b db = 2 sigma^2 (projection, same SK-04 sigma).
+    # The column keeps the per-axis moment: int b^2 F 2 pi b db = 2 sigma^2 (projection, same sigma).
     column_moment = quad(lambda b: 2.0 * math.pi * b**3 * column_profile(family, b), 0.0, 1.0,
-                         points=[0.5], epsabs=1e-14)[0]
+                         points=BREAKS, epsabs=1e-14)[0]
     assert_allclose(column_moment, 2.0 / h_over_sigma**2, rtol=1e-6)
+
+
+@pytest.mark.parametrize(("family", "closed_form"), [
+    # SK-05, b = 0 values (units of H^-2): 6/pi, 9/pi, 7/pi, 55/(6 pi), 91/(8 pi).
+    ("cubic_spline", 6.0 / math.pi), ("quintic_spline", 9.0 / math.pi), ("wendland_c2", 7.0 / math.pi),
+    ("wendland_c4", 55.0 / (6.0 * math.pi)), ("wendland_c6", 91.0 / (8.0 * math.pi)),
+])
+def test_central_column_values(family, closed_form):
+    assert_allclose(column_profile(family, 0.0), closed_form, rtol=1e-12)
 
 
 def test_cubic_spline_column_values():
@@ -112,14 +167,27 @@ def _fwhm(profile):
     return 2.0 * brentq(lambda q: float(profile(q)) - half, 1e-6, 1.0 - 1e-9, xtol=1e-14)
 
 
-@pytest.mark.parametrize(("family", "fwhm_3d", "fwhm_column"), [("cubic_spline", 0.722352, 0.704401),
-                                                              ("wendland_c2", 0.627620, 0.640458)])
-def test_kernel_fwhm(family, fwhm_3d, fwhm_column):
+@pytest.mark.parametrize(("family", "fwhm_3d", "fwhm_column"), [
     # SK-06 ([common practice, no source]; tolerance rtol 1e-5 as given there).
+    ("cubic_spline", 0.722352, 0.704401), ("quintic_spline", 0.577395, 0.567745),
+    ("wendland_c2", 0.627620, 0.640458), ("wendland_c4", 0.560649, 0.559656),
+    ("wendland_c6", 0.504964, 0.501602),
+])
+def test_kernel_fwhm(family, fwhm_3d, fwhm_column):
     assert_allclose(_fwhm(lambda q: kernel_3d(family, q)), fwhm_3d, rtol=1e-5)
     assert_allclose(_fwhm(lambda b: column_profile(family, b)), fwhm_column, rtol=1e-5)
 
 
+def test_gaussian_fwhm():
+    # FWHM = 2 sqrt(2 ln 2) sigma (check-values BM-01) with sigma/H = 1/(3 sqrt 2): exact in 3D (the
+    # half maximum lies well inside the cut); the column's chord factor erf(3 sqrt(1 - b^2)) is
+    # 1 - 5e-5 at its half maximum against 1 - 2e-5 at the centre, which narrows it by ~2e-5.
+    fwhm = 2.0 * math.sqrt(2.0 * math.log(2.0)) / (3.0 * math.sqrt(2.0))
+    assert_allclose(_fwhm(lambda q: kernel_3d("gaussian", q)), fwhm, rtol=1e-10)
+    assert_allclose(_fwhm(lambda b: column_profile("gaussian", b)), fwhm, rtol=5e-5)
+
+
 def test_every_family_has_a_published_check():
     # Guard: a family added without SK values here would otherwise go unchecked.
-    assert set(KERNEL_FAMILIES) == {"cubic_spline", "wendland_c2"}
+    assert set(KERNEL_FAMILIES) == {"cubic_spline", "quintic_spline", "wendland_c2", "wendland_c4",
+                                    "wendland_c6", "gaussian"}
