@@ -329,7 +329,7 @@ def connect_client(*, workers=None, scheduler=None, cluster=None, timeout=10.0):
             client = Client(queue_cluster, timeout=timeout)
         else:
             local = stack.enter_context(LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                                     dashboard_address=None, silence_logs=logging.ERROR))
+                                                     dashboard_address=":0", silence_logs=logging.ERROR))
             client = Client(local, timeout=timeout)
         stack.enter_context(client)
         yield client

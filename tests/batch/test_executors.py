@@ -28,7 +28,7 @@ def cluster():
     """A real LocalCluster of 2 single-threaded worker processes (spawned), closed after the module."""
     from distributed import LocalCluster
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0",
                       silence_logs=logging.ERROR) as local:
         yield local
 

@@ -74,7 +74,7 @@ def test_slabs_on_two_workers_equal_slabs_in_process(slab_batch, tmp_path):
 
     here = run_batch(load_batch(slab_batch, output_dir=tmp_path / "here"))
     batch = load_batch(slab_batch, output_dir=tmp_path / "dask")
-    with LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=None) as cluster, Client(cluster) as client:
+    with LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=":0") as cluster, Client(cluster) as client:
         on_dask = run_batch(batch, client=client)
     assert on_dask.records[0]["status"] == "done", on_dask.records[0]["error"]
     path = on_dask.records[0]["outputs"]["cube"]["path"]
