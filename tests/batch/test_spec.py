@@ -179,3 +179,21 @@ def test_toml_literal_round_trips_through_tomllib():
         assert tomllib.loads(f"v = {toml_literal(value)}")["v"] == value
     with pytest.raises(TypeError, match="must be a TOML string"):
         toml_literal(object())
+
+
+def test_the_example_batch_config_expands_and_validates(tmp_path, make_snapshot):
+    import shutil
+    from pathlib import Path
+
+    import pipeline
+
+    configs = Path(pipeline.__file__).resolve().parents[1] / "configs"
+    (tmp_path / "configs").mkdir()
+    for name in ("batch.toml", "single_cube.toml"):
+        shutil.copy(configs / name, tmp_path / "configs" / name)
+    (tmp_path / "demo" / "output").mkdir(parents=True)
+    make_snapshot(50, name="demo/output/disc_galaxy.h5")
+    batch = load_batch(tmp_path / "configs" / "batch.toml")
+    assert len(batch.jobs) == 2 * 3 * 2
+    assert batch.jobs[0].name == "disc_galaxy_i020_pa120_d08.5_compact"
+    assert batch.output_dir == tmp_path / "configs" / "batch_output"

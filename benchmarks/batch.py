@@ -1,0 +1,147 @@
+"""Batch executors side by side: 2 Dask workers vs 1, snapshot reads per worker, scheduler overhead per job.
+
+Run ``python benchmarks/batch.py --quick`` (a few minutes on 2 cores).  The last
+line printed is one JSON object:
+
+``speedup_2workers``
+    Wall time of 8 jobs on a 1-worker LocalCluster over that on a 2-worker one
+    (both warmed up, one numba thread per job).
+``snapshot_reads_per_worker``
+    Largest number of times one worker read one snapshot file in the 2-worker run.
+``overhead_fraction``
+    (1-worker Dask wall time - in-process wall time) / 8 jobs, over the median
+    run time of one job: what the scheduler adds to each job.
+
+The snapshots are invented exponential discs (common practice for a benchmark, no source).
+"""
+
+import argparse
+import json
+import logging
+import statistics
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from pipeline.batch import load_batch, run_batch
+
+RUN_TOML = """
+[snapshot]
+path = "disc_0.h5"
+chunk_particles = 50000
+
+[geometry]
+centre = "centre_of_mass"
+selection_radius = "20 kpc"
+orientation = "simulation_axes"
+
+[observer]
+distance = "10 Mpc"
+systemic_velocity = "700 km/s"
+
+[grid]
+n_x = {n_pix}
+n_y = {n_pix}
+n_chan = {n_chan}
+pixel_scale = "8 arcsec"
+channel_width = "8 km/s"
+
+[beam]
+major = "30 arcsec"
+minor = "25 arcsec"
+
+[noise]
+mode = "rms"
+rms = "0.3 mJy/beam"
+
+[output]
+moment0 = true
+preview = false
+"""
+
+BATCH_TOML = """
+[batch]
+run_config = "run.toml"
+output_directory = "{output}"
+name = "{{snapshot}}_i{{inclination:02.0f}}"
+
+[sweep]
+snapshots = ["disc_0.h5", "disc_1.h5"]
+
+[sweep.views]
+pairs = [["20 deg", "0 deg"], ["45 deg", "30 deg"], ["70 deg", "60 deg"], ["85 deg", "90 deg"]]
+"""
+
+
+def _write_disc(path, n_particles, seed):
+    """An exponential disc (scale length 3 kpc) in flat rotation at 180 km/s, thin and warm."""
+    rng = np.random.default_rng(seed)
+    radius = rng.gamma(2.0, 3.0, n_particles)
+    phi = rng.uniform(0, 2 * np.pi, n_particles)
+    height = rng.normal(0, 0.3, n_particles)
+    position = np.column_stack([radius * np.cos(phi), radius * np.sin(phi), height])
+    speed = 180.0 * (1 - np.exp(-radius / 1.5))
+    velocity = np.column_stack([-speed * np.sin(phi), speed * np.cos(phi), np.zeros(n_particles)])
+    velocity += rng.normal(0, 8.0, velocity.shape)
+    with h5py.File(path, "w") as handle:
+        gas = handle.create_group("gas")
+        gas["position"] = position
+        gas["velocity"] = velocity
+        gas["mass"] = np.full(n_particles, 2e9 / n_particles)
+        gas["smoothing_length"] = 0.3 + 0.1 * radius
+        gas["temperature"] = np.full(n_particles, 8000.0)
+        gas["neutral_fraction"] = np.full(n_particles, 0.9)
+
+
+def _dask_run(folder, name, n_workers):
+    from distributed import Client, LocalCluster
+
+    with LocalCluster(n_workers=n_workers, threads_per_worker=1, dashboard_address=":0",
+                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+        warm = load_batch(folder / "warm.toml", output_dir=folder / f"warm_{name}")
+        run_batch(warm, client=client, threads=1)
+        batch = load_batch(folder / "batch.toml", output_dir=folder / name)
+        started = time.perf_counter()
+        result = run_batch(batch, client=client, threads=1)
+        return time.perf_counter() - started, result
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="smaller jobs (a few minutes in all)")
+    args = parser.parse_args()
+    n_particles, n_pix, n_chan = (150_000, 128, 96) if args.quick else (600_000, 192, 128)
+    warnings.simplefilter("ignore")
+    with tempfile.TemporaryDirectory() as scratch:
+        folder = Path(scratch)
+        for k in range(2):
+            _write_disc(folder / f"disc_{k}.h5", n_particles, seed=k + 1)
+        (folder / "run.toml").write_text(RUN_TOML.format(n_pix=n_pix, n_chan=n_chan))
+        (folder / "batch.toml").write_text(BATCH_TOML.format(output="in_process"))
+        warm = BATCH_TOML.format(output="warm").replace('["20 deg", "0 deg"], ["45 deg", "30 deg"], ', "")
+        (folder / "warm.toml").write_text(warm.replace('["70 deg", "60 deg"], ', ""))
+        run_batch(load_batch(folder / "warm.toml", output_dir=folder / "warm_here"), threads=1)
+        started = time.perf_counter()
+        here = run_batch(load_batch(folder / "batch.toml"), threads=1)
+        t_here = time.perf_counter() - started
+        t_one, one = _dask_run(folder, "one_worker", 1)
+        t_two, two = _dask_run(folder, "two_workers", 2)
+    job_time = statistics.median(record["wall_time_s"] for record in here.records)
+    n_jobs = len(here.records)
+    reads = [count for per_worker in two.snapshot_reads.values() for count in per_worker.values()]
+    print(f"in process: {t_here:.2f} s for {n_jobs} jobs (median job {job_time:.2f} s)")
+    print(f"1 worker:   {t_one:.2f} s;  2 workers: {t_two:.2f} s")
+    print(f"snapshot reads per (worker, snapshot) with 2 workers: {reads}")
+    failed = here.failed + one.failed + two.failed
+    print(json.dumps({"speedup_2workers": round(t_one / t_two, 3),
+                      "snapshot_reads_per_worker": max(reads),
+                      "overhead_fraction": round((t_one - t_here) / n_jobs / job_time, 4),
+                      "median_job_seconds": round(job_time, 3), "n_jobs": n_jobs, "failed": list(failed)}))
+
+
+if __name__ == "__main__":
+    main()
