@@ -20,8 +20,8 @@ from pipeline.cube import Cube
 from pipeline.emission import (column_density_from_brightness, column_density_from_flux,
                                hi_mass_from_flux, hi_weights_jy_hz, thermal_dispersion)
 from pipeline.errors import (ChannelTooWideWarning, EmptyFieldError, FieldTooSmallWarning,
-                             MemoryBudgetError, OutputError, ParticlesOutsideFieldWarning,
-                             UndersampledBeamWarning)
+                             MemoryBudgetError, OutputError, OversizedParticleWarning,
+                             ParticlesOutsideFieldWarning, UndersampledBeamWarning)
 from pipeline.geometry import (GridSpec, ViewSpec, angular_momentum_axis, find_centre,
                                find_frame_velocity, make_cube_wcs, make_image_wcs, orient_chunk,
                                project_to_grid, resolve_distances, rotation_for_view,
@@ -399,7 +399,7 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
     is_delta = config["grid.line_profile"] == "delta"
     distance_mpc = plan.distances.luminosity_distance.to_value(u.Mpc)
     threads = config["run.threads"] or None
-    n_selected, total, deposited, contributions = 0, 0.0, 0.0, 0
+    n_selected, total, deposited, contributions, n_oversized = 0, 0.0, 0.0, 0, 0
     for chunk in plan.snapshot.iter_chunks():
         progress(chunk.n_particles, plan.snapshot.n_particles)
         chunk = select_sphere(chunk, centre_kpc, radius_kpc)
@@ -423,9 +423,15 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
         total += report.total_weight
         deposited += report.deposited_weight
         contributions += report.n_contributions
+        n_oversized += report.n_larger_than_field
     if n_selected == 0:
         raise EmptyFieldError(f"{config.source}:geometry.selection_radius: no gas particle lies within "
                               f"{radius_kpc:g} kpc of the centre {np.round(centre_kpc, 3).tolist()} kpc")
+    if n_oversized:
+        warnings.warn(f"{config.source}:grid: {n_oversized} of {n_selected} selected particles have kernels "
+                      f"wider than the field of view; their emission is spread thinly over the whole cube "
+                      f"(check snapshot.fields.smoothing_length.unit and grid.support_factor)",
+                      OversizedParticleWarning, stacklevel=2)
     hi_mass = hi_mass_from_flux(total * u.Jy * u.Hz, plan.distances.luminosity_distance).to(u.Msun)
     out /= grid.channel_width.to_value(u.Hz)          # Jy Hz per voxel -> Jy/pixel, in place
     observed = convolve_with_beam(Cube(out, _slab_wcs(grid, first, stop), JY_PER_PIXEL), plan.beam)

@@ -18,6 +18,7 @@ __all__ = [
     "ChannelTooWideWarning",
     "FieldTooSmallWarning",
     "ParticlesOutsideFieldWarning",
+    "OversizedParticleWarning",
 ]
 
 
@@ -67,3 +68,7 @@ class FieldTooSmallWarning(CubewrightWarning):
 
 class ParticlesOutsideFieldWarning(CubewrightWarning):
     """Part of the selected gas falls outside the cube and is not recorded."""
+
+
+class OversizedParticleWarning(CubewrightWarning):
+    """Some particles' kernels are wider than the whole field of view."""
