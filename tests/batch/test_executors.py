@@ -144,3 +144,11 @@ def test_results_of_the_executors_are_numpy_free_for_the_manifest(sweep, tmp_pat
     result = run_batch(load_batch(sweep, output_dir=tmp_path / "o"))
     assert json.loads(json.dumps(result.records, allow_nan=False)) == result.records
     assert np.isfinite(result.records[0]["wall_time_s"]) and result.records[0]["peak_memory_mib"] > 0
+
+
+def test_a_cluster_section_without_dask_jobqueue_is_a_clear_error(monkeypatch):
+    import sys
+
+    monkeypatch.setitem(sys.modules, "dask_jobqueue", None)
+    with pytest.raises(ConfigError, match=r"\[cluster\]: expected dask-jobqueue to be installed"):
+        make_jobqueue_cluster({"kind": "slurm"})

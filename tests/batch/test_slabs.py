@@ -89,3 +89,14 @@ def test_a_budget_too_small_for_one_channel_fails_the_job_with_the_reason(write_
     assert "MemoryBudgetError" in record["error"] and "even one channel" in record["error"]
     (estimate,) = estimate_jobs(batch)
     assert "even one channel" in estimate.error
+
+
+def test_a_slab_job_whose_gas_misses_the_band_fails_and_leaves_no_partial_file(slab_batch):
+    text = slab_batch.read_text() + ('[sweep.instruments.shifted.geometry]\nframe = "explicit"\n'
+                                     'frame_velocity = ["0 km/s", "0 km/s", "5000 km/s"]\n')
+    slab_batch.write_text(text)
+    batch = load_batch(slab_batch)
+    (record,) = run_batch(batch).records
+    assert record["status"] == "failed" and "EmptyFieldError" in record["error"]
+    assert "no selected gas falls inside the cube" in record["error"]
+    assert [p.name for p in batch.output_dir.iterdir() if p.name.startswith(".partial-")] == []

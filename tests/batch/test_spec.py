@@ -95,6 +95,22 @@ def test_snapshot_glob_expands_sorted_and_groups_jobs_by_snapshot(write_batch, m
     ("[cluster]\nkind = 'slurm'\ncores = 'eight'\n", ["cluster.cores: expected a whole number"]),
     ("[cluster]\nkind = 'slurm'\nqueu = 'x'\n", ["cluster.queu: unknown key", "'cluster.queue'"]),
     ("[cluster]\nkind = 'slurm'\nmemory = '8 km'\n", ["cluster.memory: expected an amount of memory"]),
+    ("[cluster]\ncores = 2\n", ["cluster.kind: expected one of 'slurm', 'pbs'; got nothing"]),
+    ("[cluster]\nkind = 'slurm'\njob_extra_directives = '-x'\n", ["cluster.job_extra_directives: expected a list"]),
+    ("[cluster]\nkind = 'slurm'\nqueue = 3\n", ["cluster.queue: expected a queue or partition name", "got 3"]),
+    ("[sweep.views]\ninclinations = ['1 deg']\n", ["sweep.views.position_angles: expected a list of angles"]),
+    ("[sweep.views]\npairs = [['1 deg', '2 deg']]\nseed = 1\n", ["sweep.views.seed: expected only with random"]),
+    ("[sweep.views]\nrandom = 2\nseed = 1\nhemisphere = 'yes'\n", ["sweep.views.hemisphere: expected true or false"]),
+    ("[sweep.views]\nrandom = 0\nseed = 1\n", ["sweep.views.random: expected a whole number at least 1; got 0"]),
+    ("[sweep]\ninstruments = {}\n", ["sweep.instruments: expected at least one [sweep.instruments.NAME]"]),
+    ("[sweep]\nsnapshots = ['snapshot.h5', 'snapshot.h5']\n", ["sweep.snapshots: expected each snapshot once"]),
+    ("[sweep]\nsnapshots = 'snapshot.h5'\n", ["sweep.snapshots: expected a list of at least 1 value(s)"]),
+    ("[sweep]\nredshifts = ['0.1']\n", ["sweep.redshifts[0]: expected a number, e.g. 5.0; got '0.1'"]),
+    ("[sweep]\nviews = 3\n", ["sweep.views: expected a table ([sweep.views]); got 3"]),
+    ("[sweep]\nxyzzy = 1\n", ["sweep.xyzzy: unknown key; the valid keys are: snapshots"]),
+    ("[sweep.keys]\nxyzzy = [1]\n", ["sweep.keys.xyzzy: unknown run config key 'xyzzy'"]),
+    ("name = ''\n", ["batch.name: expected a non-empty string; got ''"]),
+    ("name = 'a{'\n", ["batch.name: expected a template such as"]),
 ])
 def test_bad_batch_keys_are_refused_with_file_key_and_what_was_got(write_batch, body, fragments):
     with pytest.raises(ConfigError) as info:
@@ -197,3 +213,17 @@ def test_the_example_batch_config_expands_and_validates(tmp_path, make_snapshot)
     assert len(batch.jobs) == 2 * 3 * 2
     assert batch.jobs[0].name == "disc_galaxy_i020_pa120_d08.5_compact"
     assert batch.output_dir == tmp_path / "configs" / "batch_output"
+
+
+@pytest.mark.parametrize("content, fragment", [
+    (b"[batch\n", "not valid TOML"),
+    (b"\xff\xfe", "expected UTF-8 text"),
+    (b"[batch]\nname = 'x'\n", "batch.run_config: expected the base run config file"),
+])
+def test_unreadable_batch_files_are_refused(tmp_path, content, fragment):
+    path = tmp_path / "b.toml"
+    path.write_bytes(content)
+    with pytest.raises(ConfigError, match=fragment):
+        load_batch(path)
+    with pytest.raises(ConfigError, match=r"missing.toml: cannot read the batch file"):
+        load_batch(tmp_path / "missing.toml")
