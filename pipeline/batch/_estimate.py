@@ -9,7 +9,7 @@ from pipeline.chain import open_configured_snapshot, plan_run
 from pipeline.errors import CubewrightError, MemoryBudgetError
 
 from ._jobs import JobContext, describe_error
-from ._slabs import plan_slabs
+from ._slabs import UNBOUNDED_BUDGET, plan_slabs
 
 __all__ = ["JobEstimate", "estimate_jobs", "format_estimates"]
 
@@ -64,7 +64,7 @@ def estimate_jobs(batch) -> list:
                     plan, ranges = plan_slabs(config, snapshot)
                     n_slabs, maps = len(ranges), False
                     largest = max(stop - first for first, stop in ranges)
-                    peak = plan_run(config.replace([f"grid.n_chan={largest}", "run.memory_budget=1e9 GiB"]),
+                    peak = plan_run(config.replace([f"grid.n_chan={largest}", UNBOUNDED_BUDGET]),
                                     snapshot=snapshot).peak_memory
             except CubewrightError as err:
                 estimates.append(JobEstimate(job=job, peak_memory=None, disk=None, n_slabs=0,

@@ -29,10 +29,10 @@ from ._jobs import (channel_axes, describe_error, finish_measurements, job_recor
                     pixels_per_beam, reset_peak_memory)
 
 __all__ = ["SlabWork", "SlabResult", "plan_slabs", "start_slab_job", "render_slab", "finish_slab_job",
-           "run_slab_job_here"]
+           "run_slab_job_here", "UNBOUNDED_BUDGET"]
 
 # Budget given to the planning of a slab job; the slabs themselves are sized to the real budget.
-_UNBOUNDED = "run.memory_budget=1e9 GiB"
+UNBOUNDED_BUDGET = "run.memory_budget=1e9 GiB"
 _JY_PER_BEAM = u.Jy / u.beam
 
 
@@ -81,7 +81,7 @@ class SlabResult:
 
 
 def _roomy(config):
-    return config.replace([_UNBOUNDED])
+    return config.replace([UNBOUNDED_BUDGET])
 
 
 def plan_slabs(config, snapshot):
