@@ -55,7 +55,7 @@ def _warm_up():
 # --- deposit throughput, threads, tile sorting, bincount floor --------------------------------------
 
 def _deposit_timing(particles, shape, *, threads, repeats, tile_columns=None):
-    """Return (seconds, DepositReport) for depositing ``particles`` into a fresh zero cube."""
+    """Return (best wall seconds, its CPU seconds, DepositReport, cube) for depositing ``particles``."""
     from pipeline.grid import _deposit, deposit_particles
 
     out = np.zeros(shape)
@@ -66,12 +66,14 @@ def _deposit_timing(particles, shape, *, threads, repeats, tile_columns=None):
     try:
         for _ in range(repeats):
             out[...] = 0.0  # zeroed (and every page touched) outside the timing
-            start = time.perf_counter()
+            start, cpu_start = time.perf_counter(), time.process_time()
             report = deposit_particles(**particles, out=out, n_threads=threads)
-            seconds = min(seconds, time.perf_counter() - start)
+            wall = time.perf_counter() - start
+            if wall < seconds:
+                seconds, cpu_seconds = wall, time.process_time() - cpu_start
     finally:
         _deposit._TILE_COLUMNS = saved
-    return seconds, report, out
+    return seconds, cpu_seconds, report, out
 
 
 def _bincount_deposit(particles, shape):
@@ -89,30 +91,33 @@ def throughput(results, *, repeats, large):
     """Deposit a 1e6-particle disc on 1 and 2 threads, with and without tile sorting, and the floor."""
     n = 1_000_000
     particles = disc_chunk(n, SMALL_SHAPE, seed=1)
-    one, report, cube = _deposit_timing(particles, SMALL_SHAPE, threads=1, repeats=repeats)
-    two, _, _ = _deposit_timing(particles, SMALL_SHAPE, threads=2, repeats=repeats)
-    unsorted_one, _, _ = _deposit_timing(particles, SMALL_SHAPE, threads=1, repeats=repeats,
+    one, one_cpu, report, cube = _deposit_timing(particles, SMALL_SHAPE, threads=1, repeats=repeats)
+    two, two_cpu, _, _ = _deposit_timing(particles, SMALL_SHAPE, threads=2, repeats=repeats)
+    unsorted_one, _, _, _ = _deposit_timing(particles, SMALL_SHAPE, threads=1, repeats=repeats,
                                          tile_columns=1 << 30)
     floor, _ = _best_time(lambda: _bincount_deposit(particles, SMALL_SHAPE), repeats + 1)
     per_particle = report.n_contributions / n
     results.update(contributions_per_s_1thread=report.n_contributions / one,
                    contributions_per_s_2threads=report.n_contributions / two,
                    speedup_2threads=one / two, contributions_per_particle=per_particle,
+                   contributions_per_cpu_s_1thread=report.n_contributions / one_cpu,
+                   cores_busy_2threads=two_cpu / two,
                    tile_sort_speedup_256=unsorted_one / one, bincount_floor_ratio=one / floor,
                    bincount_ns_per_particle=1e9 * floor / n)
     print(f"deposit 1e6 particles into {SMALL_SHAPE}, {per_particle:.0f} contributions per particle")
     print(f"  1 thread  {one:7.2f} s  {report.n_contributions / one / 1e6:7.0f} M contributions/s  "
-          f"{1e9 * one / n:6.0f} ns/particle")
+          f"{1e9 * one / n:6.0f} ns/particle  ({report.n_contributions / one_cpu / 1e6:.0f} M per CPU second)")
     print(f"  2 threads {two:7.2f} s  {report.n_contributions / two / 1e6:7.0f} M contributions/s  "
-          f"speed-up {one / two:.2f}")
+          f"speed-up {one / two:.2f}  (CPU time / wall time {two_cpu / two:.2f}: below 2 when other "
+          f"work shares the cores)")
     print(f"  unsorted (band order only), 1 thread {unsorted_one:.2f} s: tile sort speed-up "
           f"{unsorted_one / one:.2f}")
     print(f"  numpy.bincount nearest-grid-point floor {floor:.3f} s ({1e9 * floor / n:.0f} ns/particle): "
           f"ours / floor = {one / floor:.1f}")
     if large:
         big = disc_chunk(n, LARGE_SHAPE, seed=1)
-        sorted_two, big_report, _ = _deposit_timing(big, LARGE_SHAPE, threads=2, repeats=1)
-        unsorted_two, _, _ = _deposit_timing(big, LARGE_SHAPE, threads=2, repeats=1, tile_columns=1 << 30)
+        sorted_two, _, big_report, _ = _deposit_timing(big, LARGE_SHAPE, threads=2, repeats=1)
+        unsorted_two, _, _, _ = _deposit_timing(big, LARGE_SHAPE, threads=2, repeats=1, tile_columns=1 << 30)
         results.update(tile_sort_speedup_1024=unsorted_two / sorted_two,
                        contributions_per_s_2threads_1024=big_report.n_contributions / sorted_two)
         print(f"deposit 1e6 particles into {LARGE_SHAPE}, 2 threads: {sorted_two:.2f} s "
@@ -351,7 +356,7 @@ def main(argv=None):
     _warm_up()
     results = {}
     scaling(results)  # first, while this process is small (children inherit its ru_maxrss)
-    cube = throughput(results, repeats=2, large=True)
+    cube = throughput(results, repeats=3, large=True)
     pixel_weight_accuracy(results, families=KERNEL_FAMILIES,
                           extra_largest=KERNEL_FAMILIES if options.full else ("cubic_spline", "gaussian"))
     beam_and_fits(results, cube, repeats=2)

@@ -23,6 +23,9 @@ units and write into preallocated outputs.  Conventions shared by all of them:
   weight), one cache line per particle;
 * row bands are ``band_rows`` rows of the cube; band ``b`` owns rows
   ``b * band_rows <= j < (b + 1) * band_rows`` and is the only writer of them.
+  The kernels release the GIL; ``pipeline.grid._deposit`` runs
+  ``_deposit_bands_kernel`` on several Python threads, each filling one band at
+  a time (numba's own ``prange`` scheduling balanced these uneven bands poorly).
 """
 
 import math
@@ -354,6 +357,8 @@ def _deposit_band_kernel(band, band_rows, band_start, band_row_range, particles,
     """
     n_chan, n_y, n_x = out.shape
     n_table = table.shape[0]
+    flat = out.reshape(-1)
+    plane = n_y * n_x
     cell = 1.0 / (n_table - 1.0)
     row_start = band * band_rows
     row_stop = min(row_start + band_rows, n_y)
@@ -414,16 +419,17 @@ def _deposit_band_kernel(band, band_rows, band_start, band_row_range, particles,
                 lower_corners, upper_corners = upper_corners, lower_corners
                 if last < first:
                     continue
-                # Unsigned offsets skip numba's negative-index wraparound so the loop vectorises.
-                out_start = np.uint64(i_first + first)
+                # Unsigned offsets into the flat cube skip numba's negative-index wraparound so the
+                # loop vectorises; ``voxel`` steps one channel plane at a time.
+                voxel = np.uint64(chan_first * plane + j * n_x + i_first + first)
                 share_start = np.uint64(first)
                 n_written = last + 1 - first
                 for channel in range(chan_first, chan_stop):
                     voxel_weight = scale * channel_weights[channel - chan_first]
-                    plane_row = out[channel, j]
                     for m in range(n_written):
                         offset = np.uint64(m)
-                        plane_row[out_start + offset] += voxel_weight * share[share_start + offset]
+                        flat[voxel + offset] += voxel_weight * share[share_start + offset]
+                    voxel += np.uint64(plane)
                 n_contributions += (chan_stop - chan_first) * n_written
     return n_contributions
 

@@ -1,8 +1,8 @@
-"""Line-of-sight (column) kernel profiles and their cumulative pixel-integration tables.
+"""Line-of-sight (column) kernel profiles and the quadrant tables that integrate them over pixels.
 
 All lengths are in units of the support radius ``H = support_factor * h``
-(config key ``grid.support_factor``; 2 for Monaghan/Price smoothing lengths, 1
-when the snapshot stores the support radius itself).
+(config key ``grid.support_factor``; see
+:func:`~pipeline.kernels.default_support_factor`).
 """
 
 import functools
