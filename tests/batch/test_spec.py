@@ -207,8 +207,8 @@ def test_the_example_batch_config_expands_and_validates(tmp_path, make_snapshot)
     (tmp_path / "configs").mkdir()
     for name in ("batch.toml", "single_cube.toml"):
         shutil.copy(configs / name, tmp_path / "configs" / name)
-    (tmp_path / "demo" / "output").mkdir(parents=True)
-    make_snapshot(50, name="demo/output/disc_galaxy.h5")
+    (tmp_path / "cubewright-demo").mkdir()
+    make_snapshot(50, name="cubewright-demo/disc_galaxy.h5")
     batch = load_batch(tmp_path / "configs" / "batch.toml")
     assert len(batch.jobs) == 2 * 3 * 2
     assert batch.jobs[0].name == "disc_galaxy_i020_pa120_d08.5_compact"

@@ -54,7 +54,7 @@ distance = "8.5 Mpc"
 def test_example_config_loads_without_the_snapshot_existing():
     config = load_config(EXAMPLE)
     assert not config["snapshot.path"].exists()
-    assert config["snapshot.path"] == (EXAMPLE.parent / "../demo/output/disc_galaxy.h5").resolve()
+    assert config["snapshot.path"] == (EXAMPLE.parent / "../cubewright-demo/disc_galaxy.h5").resolve()
     assert_quantity_allclose(config["observer.distance"], 8.5 * u.Mpc, rtol=0)
     assert config["noise.n_antennas"] == 64
     assert_quantity_allclose(config["noise.dish_diameter"], 15 * u.m, rtol=0)
