@@ -98,17 +98,19 @@ def _check_threads(n_threads) -> int:
     return int(n_threads)
 
 
-def _fill_bands(band_order: np.ndarray, n_threads: int, arguments: tuple) -> int:
-    """Run the band kernel over ``band_order`` on ``n_threads`` threads; return the contributions made.
+def _fill_bands(band_order: np.ndarray, n_threads: int, arguments: tuple, side_task):
+    """Run ``side_task()`` and the band kernel over ``band_order`` on ``n_threads`` threads.
 
-    Each idle thread takes the next band in order (dynamic scheduling, heaviest
-    bands first), so a field whose particles crowd into a few bands stays
-    balanced.  Bands own disjoint rows of the cube, so no two threads write the
-    same voxel, and each band sums its particles in sorted order whichever
-    thread runs it.
+    Returns ``(contributions made, side_task's result)``.  The side task (the
+    inside-weight bookkeeping, independent of the deposit) goes to the first
+    free thread; then each idle thread takes the next band in order (dynamic
+    scheduling, heaviest bands first), so a field whose particles crowd into a
+    few bands stays balanced.  Bands own disjoint rows of the cube, so no two
+    threads write the same voxel, and each band sums its particles in sorted
+    order whichever thread runs it.
     """
     if n_threads == 1 or band_order.shape[0] < 2:
-        return int(_jit._deposit_bands_kernel(band_order, *arguments))
+        return int(_jit._deposit_bands_kernel(band_order, *arguments)), side_task()
     tasks = iter(band_order.tolist())
     lock = threading.Lock()
 
@@ -123,8 +125,9 @@ def _fill_bands(band_order: np.ndarray, n_threads: int, arguments: tuple) -> int
             n_contributions += int(_jit._deposit_bands_kernel(np.array([band]), *arguments))
 
     with concurrent.futures.ThreadPoolExecutor(max_workers=n_threads) as pool:
+        side = pool.submit(side_task)
         futures = [pool.submit(worker) for _ in range(min(n_threads, band_order.shape[0]))]
-        return sum(future.result() for future in futures)
+        return sum(future.result() for future in futures), side.result()
 
 
 def _check_support_factor(support_factor, kernel: str) -> float:
@@ -284,9 +287,6 @@ def deposit_particles(x_pix, y_pix, h_pix, chan_centre, chan_sigma, weight, *, o
 
     table = quadrant_column_table(kernel, _TABLE_SIZE)
     n_chan, n_y, n_x = out.shape
-    deposited_weight, outside_weight, n_larger = _jit._inside_weight_kernel(
-        x_pix, y_pix, h_pix, chan_centre, chan_sigma, weight, factor, table, n_chan, n_y, n_x,
-        float(min(n_y, n_x)))
     n_bands = -(-n_y // _TILE_ROWS)
     n_tile_columns = -(-n_x // _TILE_COLUMNS)
     keys = np.empty(n_particles, np.int64)
@@ -302,8 +302,14 @@ def deposit_particles(x_pix, y_pix, h_pix, chan_centre, chan_sigma, weight, *, o
     # Heaviest bands first, so the last tasks handed out are short ones.
     band_order = np.argsort(-band_cost, kind="stable")
     band_order = np.ascontiguousarray(band_order[band_cost[band_order] > 0.0])
-    n_contributions = _fill_bands(band_order, threads, (_TILE_ROWS, band_start, band_row_range,
-                                                        particles, table, out))
+
+    def inside_weight():
+        return _jit._inside_weight_kernel(x_pix, y_pix, h_pix, chan_centre, chan_sigma, weight, factor,
+                                          table, n_chan, n_y, n_x, float(min(n_y, n_x)))
+
+    n_contributions, (deposited_weight, outside_weight, n_larger) = _fill_bands(
+        band_order, threads, (_TILE_ROWS, band_start, band_row_range, particles, table, out),
+        inside_weight)
     outside_fraction = outside_weight / total_weight if total_weight != 0.0 else 0.0
     return DepositReport(total_weight, deposited_weight, outside_fraction, n_particles,
                          int(n_contributions), int(n_larger))
