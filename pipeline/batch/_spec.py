@@ -27,7 +27,7 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
-from pipeline.config import PARAMS_BY_KEY, config_from_dict, load_config
+from pipeline.config import PARAMS_BY_KEY, config_from_dict, load_config, read_toml_file
 from pipeline.errors import ConfigError
 
 __all__ = ["BatchSpec", "JobSpec", "load_batch", "uniform_sphere_views", "toml_literal"]
@@ -421,20 +421,6 @@ def _base_parameters(config):
     }
 
 
-def _read_toml(path):
-    source = os.fspath(path)
-    try:
-        text = Path(path).read_bytes().decode("utf-8")
-    except OSError as err:
-        raise ConfigError(f"{source}: cannot read the batch file: {err.strerror or err}") from err
-    except UnicodeDecodeError as err:
-        raise ConfigError(f"{source}: expected UTF-8 text; got a byte that is not UTF-8 at offset {err.start}") from err
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ConfigError(f"{source}: not valid TOML: {err}") from err
-
-
 def _check_cluster(origin, table):
     _check_keys(origin, "cluster", table, tuple(_CLUSTER_KEYS))
     if "kind" not in table:
@@ -482,7 +468,7 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
     """
     origin = os.fspath(path)
     folder = Path(path).resolve().parent
-    document = _read_toml(path)
+    document = read_toml_file(path, what="batch file")
     _check_keys(origin, "", document, _TOP)
     batch = _table(origin, "batch", document.get("batch", {}))
     sweep = _table(origin, "sweep", document.get("sweep", {}))

@@ -5,8 +5,8 @@ A run is described by one TOML file.  :func:`load_config` reads it, applies
 (:data:`PARAMS`) and returns a frozen :class:`RunConfig`.
 """
 
-from ._load import RunConfig, config_from_dict, describe_config, load_config
+from ._load import RunConfig, config_from_dict, describe_config, load_config, read_toml_file
 from ._schema import PARAMS, PARAMS_BY_KEY, REQUIRED, SNAPSHOT_FIELDS, Param
 
-__all__ = ["load_config", "config_from_dict", "RunConfig", "describe_config",
+__all__ = ["load_config", "config_from_dict", "read_toml_file", "RunConfig", "describe_config",
            "PARAMS", "PARAMS_BY_KEY", "Param", "SNAPSHOT_FIELDS", "REQUIRED"]

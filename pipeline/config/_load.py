@@ -27,7 +27,7 @@ from ._quantity import (QUANTITY_KINDS, VECTOR_KINDS, format_quantity, is_number
                         to_display)
 from ._schema import PARAMS, PARAMS_BY_KEY, SNAPSHOT_FIELDS
 
-__all__ = ["RunConfig", "load_config", "config_from_dict", "describe_config"]
+__all__ = ["RunConfig", "load_config", "config_from_dict", "read_toml_file", "describe_config"]
 
 # How errors name a value that came from an override.
 _OVERRIDE_ORIGIN = "--set"
@@ -381,18 +381,31 @@ def load_config(path, *, overrides=()) -> "RunConfig":
     """
     source = os.fspath(path)
     override_layers = (_check_override_texts(overrides),)
+    table = read_toml_file(path, what="config file")
+    return _build(_flatten(table, source), source=source, base_dir=Path(path).resolve().parent,
+                  override_layers=override_layers)
+
+
+def read_toml_file(path, *, what) -> dict:
+    """Return the table of a TOML file, or raise ConfigError naming the file.
+
+    Parameters
+    ----------
+    path : path-like
+    what : str
+        What the file is, for messages ("config file", "batch file").
+    """
+    source = os.fspath(path)
     try:
         text = Path(path).read_bytes().decode("utf-8")
     except OSError as err:
-        raise ConfigError(f"{source}: cannot read the config file: {err.strerror or err}") from err
+        raise ConfigError(f"{source}: cannot read the {what}: {err.strerror or err}") from err
     except UnicodeDecodeError as err:
         raise ConfigError(f"{source}: expected UTF-8 text; got a byte that is not UTF-8 at offset {err.start}") from err
     try:
-        table = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{source}: not valid TOML: {err}") from err
-    return _build(_flatten(table, source), source=source, base_dir=Path(path).resolve().parent,
-                  override_layers=override_layers)
 
 
 def config_from_dict(mapping, *, source="<dict>", base_dir=None, overrides=()) -> "RunConfig":
