@@ -531,6 +531,7 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
         "n_particles_selected": rendered.n_selected,
         "hi_mass_selected": rendered.hi_mass,
         "hi_mass_recovered": recovered.to(u.Msun),
+        "hi_mass_noise": None if noise is None else _whole_cube_mass_noise(plan),
         "outside_fraction": 1.0 - rendered.deposited_weight / rendered.total_weight,
         "noise_rms": noise,
         "peak_snr": None if noise is None else rendered.peak_model / noise.to_value(u.Jy / u.beam),
@@ -540,6 +541,22 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
         "profile": profile,
     }
     return RunResult(cube=observed, moment0=map0, column_density=column, paths=paths or {}, summary=summary)
+
+
+def _whole_cube_mass_noise(plan):
+    """Standard deviation that the noise adds to the HI mass summed over the whole cube.
+
+    The beam-correlated noise has an autocorrelation of twice the beam's area
+    (K convolved with itself), so one channel's summed flux has variance
+    rms^2 n_pix (2 Omega_beam / Omega_pix) / (Omega_beam / Omega_pix)^2; channels
+    are independent (large-area limit, edges neglected; common practice, no source).
+    """
+    grid = plan.grid
+    pixels_per_beam = float((plan.beam.solid_angle / plan.grid.pixel_scale**2).decompose())
+    rms_jy = plan.noise_rms.to_value(u.Jy / u.beam)
+    channel_flux_jy = rms_jy * math.sqrt(grid.n_x * grid.n_y * 2 * pixels_per_beam) / pixels_per_beam
+    integral = channel_flux_jy * math.sqrt(grid.n_chan) * grid.channel_width.to_value(u.Hz) * u.Jy * u.Hz
+    return hi_mass_from_flux(integral, plan.distances.luminosity_distance).to(u.Msun)
 
 
 def _write_outputs(result, plan, *, overwrite):

@@ -70,7 +70,9 @@ def format_summary(result) -> str:
     lines.append("summary")
     lines.append(_line("particles selected", f"{summary['n_particles_selected']}"))
     lines.append(_line("HI mass, snapshot", f"{selected.value:.4e} Msun"))
-    lines.append(_line("HI mass, from cube", f"{recovered.value:.4e} Msun "
+    noise = summary.get("hi_mass_noise")
+    spread = "" if noise is None else f" ± {noise.to_value(u.Msun):.2e} (noise, 1 sigma)"
+    lines.append(_line("HI mass, from cube", f"{recovered.value:.4e}{spread} Msun "
                                              f"({100 * (recovered / selected - 1).value:+.2f}%)"))
     lines.append(_line("outside the cube", f"{100 * summary['outside_fraction']:.3f}% of the HI"))
     lines.append(_line("W50", f"{summary['w50'].to(u.km / u.s):.1f}"))

@@ -99,3 +99,25 @@ def test_particles_wider_than_the_field_are_counted_and_warned_about(make_snapsh
     plan = _plan(config)
     with pytest.warns(OversizedParticleWarning, match="wider than the field of view"):
         render_channels(plan, orient_galaxy(plan))
+
+
+def test_quoted_hi_mass_noise_matches_the_scatter_of_signal_free_channels(small_run_config):
+    # A cube with signal only in a few channels: the others are pure noise, and the scatter of
+    # their summed flux, scaled to the whole band, must match the quoted 1-sigma mass noise
+    # (radiometer rms through the beam-correlated noise; HI-13 frequency form for the mass).
+    from pipeline.chain import summarise
+    from pipeline.emission import hi_mass_from_flux
+
+    plan = _plan(small_run_config(), "grid.n_chan=201", "grid.n_x=64", "grid.n_y=64")
+    orientation = orient_galaxy(plan)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ParticlesOutsideFieldWarning)
+        rendered = render_channels(plan, orientation)
+    result = summarise(plan, orientation, rendered)
+    flux = result.summary["profile"].to_value(u.Jy)
+    empty = np.r_[flux[:40], flux[-40:]]                 # far outside the +-100 km/s line
+    width_hz = plan.grid.channel_width.to_value(u.Hz)
+    measured = hi_mass_from_flux(np.std(empty) * np.sqrt(201) * width_hz * u.Jy * u.Hz,
+                                 plan.distances.luminosity_distance)
+    # 80 samples: the standard deviation is known to about 8%; allow 25%.
+    assert_quantity_allclose(result.summary["hi_mass_noise"], measured, rtol=0.25)
