@@ -2,22 +2,11 @@
 
 import pytest
 
+from cli_calls import one_error_line, run_cli
+
 from pipeline.cli import main
 
 VIEWS = "[sweep.views]\npairs = [['30 deg', '0 deg'], ['60 deg', '90 deg']]\n"
-
-
-def _run(capsys, *argv):
-    code = main([str(a) for a in argv])
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
-
-
-def _one_error_line(err):
-    errors = [line for line in err.splitlines() if line.startswith("cubewright: error:")]
-    assert len(errors) == 1, err
-    assert "Traceback" not in err
-    return errors[0]
 
 
 def test_batch_help_exits_zero(capsys):
@@ -28,7 +17,7 @@ def test_batch_help_exits_zero(capsys):
 
 def test_dry_run_lists_jobs_with_memory_and_disk_and_writes_nothing(capsys, write_batch, tmp_path):
     path = write_batch("name = 'v{view}_i{inclination:.0f}'\n" + VIEWS)
-    code, out, _ = _run(capsys, "batch", path, "--dry-run")
+    code, out, _ = run_cli(capsys, "batch", path, "--dry-run")
     assert code == 0
     lines = out.splitlines()
     assert "peak memory" in lines[0] and "disk" in lines[0]
@@ -41,22 +30,22 @@ def test_dry_run_lists_jobs_with_memory_and_disk_and_writes_nothing(capsys, writ
 def test_dry_run_marks_a_job_that_cannot_run_and_exits_one(capsys, write_batch, tmp_path):
     (tmp_path / "broken.h5").write_text("not HDF5")
     path = write_batch("[sweep]\nsnapshots = ['snapshot.h5', 'broken.h5']\n")
-    code, out, _ = _run(capsys, "batch", path, "--dry-run")
+    code, out, _ = run_cli(capsys, "batch", path, "--dry-run")
     assert code == 1 and "cannot run: SnapshotError" in out
 
 
 def test_batch_runs_in_process_and_reports(capsys, write_batch, tmp_path):
-    code, out, _ = _run(capsys, "batch", write_batch(VIEWS), "--workers", "1")
+    code, out, _ = run_cli(capsys, "batch", write_batch(VIEWS), "--workers", "1")
     assert code == 0 and "2 job(s): 2 done, 0 skipped (complete), 0 failed" in out
     assert (tmp_path / "batch_out" / "catalogue.ecsv").is_file() and (tmp_path / "batch_out" / "catalogue.png").is_file()
-    code, out, _ = _run(capsys, "batch", write_batch(VIEWS), "--workers", "1", "--resume")
+    code, out, _ = run_cli(capsys, "batch", write_batch(VIEWS), "--workers", "1", "--resume")
     assert code == 0 and "0 done, 2 skipped" in out
 
 
 def test_a_failed_job_exits_one_and_is_named(capsys, write_batch):
     path = write_batch("name = '{instrument}'\n[sweep.instruments.tiny.geometry]\nselection_radius = '0.0001 kpc'\n"
                        "[sweep.instruments.fine.beam]\nmajor = '50 arcsec'\n")
-    code, out, err = _run(capsys, "batch", path, "--workers", "1")
+    code, out, err = run_cli(capsys, "batch", path, "--workers", "1")
     assert code == 1 and "1 failed" in out
     assert "cubewright: 1 job(s) failed: tiny" in err and "tiny: EmptyFieldError" in err
 
@@ -67,9 +56,9 @@ def test_a_failed_job_exits_one_and_is_named(capsys, write_batch):
     ("[sweep]\nsnapshots = ['nothing_*.h5']\n", ["batch.toml:sweep.snapshots[0]:", "matches no file"]),
 ])
 def test_bad_batch_files_exit_two_with_one_line(capsys, write_batch, tmp_path, body, fragments):
-    code, _, err = _run(capsys, "batch", write_batch(body), "--workers", "1")
+    code, _, err = run_cli(capsys, "batch", write_batch(body), "--workers", "1")
     assert code == 2
-    line = _one_error_line(err)
+    line = one_error_line(err)
     for fragment in fragments:
         assert fragment in line, line
     assert not (tmp_path / "batch_out").exists()
@@ -77,20 +66,20 @@ def test_bad_batch_files_exit_two_with_one_line(capsys, write_batch, tmp_path, b
 
 @pytest.mark.dask
 def test_an_unknown_scheduler_exits_two_quickly(capsys, write_batch):
-    code, _, err = _run(capsys, "batch", write_batch(VIEWS), "--scheduler", "tcp://127.0.0.1:9",
+    code, _, err = run_cli(capsys, "batch", write_batch(VIEWS), "--scheduler", "tcp://127.0.0.1:9",
                         "--connect-timeout", "1")
-    assert code == 2 and "--scheduler: expected the address of a running Dask scheduler" in _one_error_line(err)
+    assert code == 2 and "--scheduler: expected the address of a running Dask scheduler" in one_error_line(err)
 
 
 def test_workers_must_be_positive(capsys, write_batch):
-    code, _, err = _run(capsys, "batch", write_batch(VIEWS), "--workers", "0")
-    assert code == 2 and "--workers: expected a whole number of at least 1; got 0" in _one_error_line(err)
+    code, _, err = run_cli(capsys, "batch", write_batch(VIEWS), "--workers", "0")
+    assert code == 2 and "--workers: expected a whole number of at least 1; got 0" in one_error_line(err)
 
 
 def test_a_manifest_from_another_config_exits_two_unless_forced(capsys, write_batch):
-    assert _run(capsys, "batch", write_batch(VIEWS), "--workers", "1", "--quiet")[0] == 0
+    assert run_cli(capsys, "batch", write_batch(VIEWS), "--workers", "1", "--quiet")[0] == 0
     changed = write_batch(VIEWS.replace("60 deg", "70 deg"))
-    code, _, err = _run(capsys, "batch", changed, "--workers", "1", "--resume")
-    assert code == 2 and "written by another batch config" in _one_error_line(err)
-    code, out, _ = _run(capsys, "batch", changed, "--workers", "1", "--resume", "--force")
+    code, _, err = run_cli(capsys, "batch", changed, "--workers", "1", "--resume")
+    assert code == 2 and "written by another batch config" in one_error_line(err)
+    code, out, _ = run_cli(capsys, "batch", changed, "--workers", "1", "--resume", "--force")
     assert code == 0 and "1 done, 1 skipped" in out

@@ -3,20 +3,9 @@
 import numpy as np
 import pytest
 
+from cli_calls import one_error_line, run_cli
+
 from pipeline.cli import main
-
-
-def _run(capsys, *argv):
-    code = main([str(a) for a in argv])
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
-
-
-def _one_error_line(err):
-    errors = [line for line in err.splitlines() if line.startswith("cubewright: error:")]
-    assert len(errors) == 1, err
-    assert "Traceback" not in err
-    return errors[0]
 
 
 @pytest.mark.parametrize("command", [[], ["run"], ["check"], ["inspect"], ["demo"]])
@@ -28,7 +17,7 @@ def test_help_exits_zero_and_describes_the_command(capsys, command):
 
 
 def test_check_prints_resolved_config_and_derived_numbers(capsys, small_run_config):
-    code, out, _ = _run(capsys, "check", small_run_config(), "--set", "grid.pixel_scale=10 arcsec")
+    code, out, _ = run_cli(capsys, "check", small_run_config(), "--set", "grid.pixel_scale=10 arcsec")
     assert code == 0
     assert "pixel_scale = " in out and "10" in out
     for label in ("pixel size", "beam FWHM", "channel width", "noise per channel", "peak memory"):
@@ -36,13 +25,13 @@ def test_check_prints_resolved_config_and_derived_numbers(capsys, small_run_conf
 
 
 def test_check_warns_about_an_undersampled_beam(capsys, small_run_config):
-    code, _, err = _run(capsys, "check", small_run_config(), "--set", "grid.pixel_scale=20 arcsec")
+    code, _, err = run_cli(capsys, "check", small_run_config(), "--set", "grid.pixel_scale=20 arcsec")
     assert code == 0
     assert "cubewright: warning:" in err and "fewer than 3" in err
 
 
 def test_run_writes_every_output_and_reports_the_hi_mass(capsys, small_run_config, tmp_path):
-    code, out, _ = _run(capsys, "run", small_run_config(), "--quiet")
+    code, out, _ = run_cli(capsys, "run", small_run_config(), "--quiet")
     assert code == 0 and out == ""
     written = sorted(p.name for p in (tmp_path / "out").iterdir())
     assert written == ["small.fits", "small_mom0.fits", "small_nhi.fits", "small_preview.png"]
@@ -50,20 +39,20 @@ def test_run_writes_every_output_and_reports_the_hi_mass(capsys, small_run_confi
 
 def test_run_refuses_to_clobber_without_overwrite(capsys, small_run_config, tmp_path):
     config = small_run_config()
-    assert _run(capsys, "run", config, "--quiet")[0] == 0
+    assert run_cli(capsys, "run", config, "--quiet")[0] == 0
     cube = tmp_path / "out" / "small.fits"
     before = cube.read_bytes()
-    code, _, err = _run(capsys, "run", config, "--quiet")
+    code, _, err = run_cli(capsys, "run", config, "--quiet")
     assert code == 2
-    assert "exists; pass --overwrite" in _one_error_line(err)
+    assert "exists; pass --overwrite" in one_error_line(err)
     assert cube.read_bytes() == before
-    assert _run(capsys, "run", config, "--quiet", "--overwrite")[0] == 0
+    assert run_cli(capsys, "run", config, "--quiet", "--overwrite")[0] == 0
 
 
 def _assert_bad_input(capsys, argv, *fragments, output=None):
-    code, _, err = _run(capsys, *argv)
+    code, _, err = run_cli(capsys, *argv)
     assert code == 2
-    line = _one_error_line(err)
+    line = one_error_line(err)
     for fragment in fragments:
         assert fragment in line, line
     if output is not None:
@@ -155,10 +144,10 @@ def test_unwritable_output_folder(capsys, small_run_config, tmp_path):
 
 def test_inspect_describes_a_snapshot_and_a_cube(capsys, small_run_config, tmp_path):
     config = small_run_config()
-    code, out, _ = _run(capsys, "inspect", tmp_path / "snapshot.h5")
+    code, out, _ = run_cli(capsys, "inspect", tmp_path / "snapshot.h5")
     assert code == 0 and "position  shape (200, 3)  float64" in out
-    assert _run(capsys, "run", config, "--quiet")[0] == 0
-    code, out, _ = _run(capsys, "inspect", tmp_path / "out" / "small.fits")
+    assert run_cli(capsys, "run", config, "--quiet")[0] == 0
+    code, out, _ = run_cli(capsys, "inspect", tmp_path / "out" / "small.fits")
     assert code == 0
     assert "beam" in out.lower() and "FREQ" in out
 
