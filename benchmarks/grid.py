@@ -291,14 +291,13 @@ def _demo_cube(data):
 def beam_and_fits(results, cube_data, *, repeats):
     """convolve_with_beam vs astropy convolve_fft per channel; write_cube vs ndarray.tofile."""
     from astropy.convolution import convolve_fft
-    from astropy.io import fits
 
     from pipeline.instrument import BeamSpec, beam_kernel, convolve_with_beam
-    from pipeline.io import write_cube
 
     model, grid = _demo_cube(cube_data)
     beam = BeamSpec(major=24 * u.arcsec, minor=20 * u.arcsec, position_angle=30 * u.deg)
     ours_seconds, observed = _best_time(lambda: convolve_with_beam(model, beam), repeats)
+    one_thread_seconds, _ = _best_time(lambda: convolve_with_beam(model, beam, threads=1), repeats)
     kernel = beam_kernel(beam, grid.pixel_scale)
 
     def with_astropy():
@@ -309,32 +308,41 @@ def beam_and_fits(results, cube_data, *, repeats):
     scale = float(observed.data.sum() / model.data.sum())
     difference = float(np.abs(observed.data / scale - reference).max() / np.abs(reference).max())
     results.update(convolve_speedup_vs_astropy=astropy_seconds / ours_seconds,
+                   convolve_speedup_vs_astropy_1thread=astropy_seconds / one_thread_seconds,
                    convolve_max_relative_difference=difference)
-    print(f"beam convolution of {model.data.shape}: convolve_with_beam {ours_seconds:.2f} s, astropy "
-          f"convolve_fft per channel {astropy_seconds:.2f} s: {astropy_seconds / ours_seconds:.1f}x "
-          f"(results agree to {difference:.1e} of the peak)")
+    print(f"beam convolution of {model.data.shape}: convolve_with_beam {ours_seconds:.2f} s "
+          f"({one_thread_seconds:.2f} s on 1 thread), astropy convolve_fft per channel {astropy_seconds:.2f} s: "
+          f"{astropy_seconds / ours_seconds:.1f}x ({astropy_seconds / one_thread_seconds:.1f}x on 1 thread; "
+          f"results agree to {difference:.1e} of the peak)")
+    _fits_write_timing(results, observed, repeats=repeats, key="fits_write_vs_tofile")
+    large = np.random.default_rng(3).random(LARGE_SHAPE, dtype=np.float32)
+    _fits_write_timing(results, _demo_cube(large)[0], repeats=1, key="fits_write_vs_tofile_1024")
+
+
+def _fits_write_timing(results, observed, *, repeats, key):
+    """write_cube vs ndarray.tofile of the same float32 values, each into a new file."""
+    from astropy.io import fits
+
+    from pipeline.io import write_cube
 
     with tempfile.TemporaryDirectory(dir=Path(__file__).resolve().parent) as folder:
         folder = Path(folder)
         float32 = np.asarray(observed.data, dtype=np.float32)
 
-        def write_fits():
-            write_cube(observed, folder / "cube.fits", overwrite=True)
+        def fresh(name, write):
+            """Write a new file each time: replacing a file makes ext4 flush it first (auto_da_alloc)."""
+            def timed():
+                (folder / name).unlink(missing_ok=True)
+                write(folder / name)
+            return timed
 
-        def write_raw():
-            float32.tofile(folder / "cube.raw")
-
-        def write_swapped():
-            float32.astype(">f4").tofile(folder / "cube.be")
-
-        def write_astropy_plain():
-            fits.PrimaryHDU(float32).writeto(folder / "plain.fits", overwrite=True)
-
-        fits_seconds, _ = _best_time(write_fits, repeats + 1)
-        raw_seconds, _ = _best_time(write_raw, repeats + 1)
-        swapped_seconds, _ = _best_time(write_swapped, repeats + 1)
-        plain_seconds, _ = _best_time(write_astropy_plain, repeats + 1)
-    results.update(fits_write_vs_tofile=fits_seconds / raw_seconds)
+        fits_seconds, _ = _best_time(fresh("cube.fits", lambda path: write_cube(observed, path)), repeats + 2)
+        raw_seconds, _ = _best_time(fresh("cube.raw", float32.tofile), repeats + 2)
+        swapped_seconds, _ = _best_time(fresh("cube.be", lambda path: float32.astype(">f4").tofile(path)),
+                                        repeats + 2)
+        plain_seconds, _ = _best_time(fresh("plain.fits", lambda path: fits.PrimaryHDU(float32).writeto(path)),
+                                      repeats + 2)
+    results[key] = fits_seconds / raw_seconds
     print(f"write {float32.nbytes / 2**20:.0f} MiB float32: write_cube {fits_seconds:.3f} s, ndarray.tofile "
           f"{raw_seconds:.3f} s: ratio {fits_seconds / raw_seconds:.2f} (for diagnosis: big-endian copy + "
           f"tofile {swapped_seconds:.3f} s, astropy PrimaryHDU.writeto without checksum {plain_seconds:.3f} s)")

@@ -12,8 +12,10 @@ Conventions
 * Before the beam a cube is in Jy/pixel (:data:`JY_PER_PIXEL`); after it, in Jy/beam.
 """
 
+import concurrent.futures
 import dataclasses
 import math
+import os
 
 import astropy.units as u
 import numpy as np
@@ -35,8 +37,6 @@ _FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))
 # The kernel is cut at this many standard deviations along each pixel axis; the
 # weight outside is below 4e-9 and the kept part is renormalised to unit sum.
 _KERNEL_HALF_WIDTH_SIGMA = 6.0
-# Channels transformed together; bounds the FFT workspace (see chain's memory estimate).
-_CHANNELS_PER_BATCH = 16
 
 
 def _strip(value, unit, *, name) -> np.ndarray:
@@ -161,28 +161,50 @@ def _padded_shape(plane_shape, kernel_shape) -> tuple[int, int]:
     return tuple(scipy.fft.next_fast_len(n + 2 * (k // 2), real=True) for n, k in zip(plane_shape, kernel_shape))
 
 
-def _kernel_spectrum(kernel, padded_shape) -> np.ndarray:
+def _kernel_spectrum(kernel, padded_shape, *, dtype=np.float64) -> np.ndarray:
     """Real FFT of the kernel placed with its centre on pixel (0, 0) of the padded grid."""
-    wrapped = np.zeros(padded_shape)
+    wrapped = np.zeros(padded_shape, dtype=dtype)
     wrapped[:kernel.shape[0], :kernel.shape[1]] = kernel
     wrapped = np.roll(wrapped, (-(kernel.shape[0] // 2), -(kernel.shape[1] // 2)), axis=(0, 1))
     return scipy.fft.rfft2(wrapped)
 
 
-def _convolve_planes(planes, kernel, out, *, scale):
-    """Write ``scale`` × (each plane ⊛ kernel) into ``out``, with zeros assumed beyond the edges."""
-    n_y, n_x = planes.shape[1:]
+def for_each_channel(n_chan, function, *, threads=None):
+    """Call ``function(k)`` for every channel k, on ``threads`` threads (all cores by default)."""
+    n_threads = min(n_chan, threads or os.cpu_count() or 1)
+    if n_threads <= 1:
+        for k in range(n_chan):
+            function(k)
+        return
+    with concurrent.futures.ThreadPoolExecutor(max_workers=n_threads) as pool:
+        list(pool.map(function, range(n_chan)))
+
+
+def _convolve_planes(planes, kernel, out, *, scale, threads=None):
+    """Write ``scale`` × (each plane ⊛ kernel) into ``out``, with zeros assumed beyond the edges.
+
+    Each plane is transformed alone in single precision (one plane's FFT stays
+    in cache), and ``threads`` threads take planes in turn; scipy's FFTs run
+    without the GIL.  The result does not depend on the thread count.
+    """
+    n_chan, n_y, n_x = planes.shape
     padded = _padded_shape((n_y, n_x), kernel.shape)
-    spectrum = _kernel_spectrum(kernel, padded)
-    for start in range(0, planes.shape[0], _CHANNELS_PER_BATCH):
-        batch = np.asarray(planes[start:start + _CHANNELS_PER_BATCH], dtype=np.float64)
-        if not np.isfinite(batch).all():
-            bad = start + int(np.flatnonzero(~np.isfinite(batch).all(axis=(1, 2)))[0])
-            raise ValueError(f"the cube must hold finite values to be convolved; channel {bad} holds NaN or Inf")
-        transformed = scipy.fft.rfft2(batch, s=padded, axes=(-2, -1))
+    spectrum = _kernel_spectrum(kernel, padded, dtype=np.float32) * np.float32(scale)
+    bad_channels = []
+
+    def convolve_plane(k):
+        plane = np.asarray(planes[k], dtype=np.float32)
+        if not np.isfinite(plane).all():
+            bad_channels.append(k)
+            return
+        transformed = scipy.fft.rfft2(plane, s=padded)
         transformed *= spectrum
-        convolved = scipy.fft.irfft2(transformed, s=padded, axes=(-2, -1))[:, :n_y, :n_x]
-        out[start:start + batch.shape[0]] = convolved * scale
+        out[k] = scipy.fft.irfft2(transformed, s=padded)[:n_y, :n_x]
+
+    for_each_channel(n_chan, convolve_plane, threads=threads)
+    if bad_channels:
+        raise ValueError(f"the cube must hold finite values to be convolved; channel {min(bad_channels)} "
+                         f"holds NaN or Inf")
     return out
 
 
@@ -239,7 +261,7 @@ def beam_kernel(beam, pixel_scale, *, shape=None) -> np.ndarray:
     return _kernel_from_covariance(_pixel_covariance(beam, pixel_matrix), shape)
 
 
-def convolve_with_beam(cube, beam) -> Cube:
+def convolve_with_beam(cube, beam, *, threads=None) -> Cube:
     """Convolve a Jy/pixel cube with a Gaussian beam and return it in Jy/beam.
 
     Parameters
@@ -249,12 +271,14 @@ def convolve_with_beam(cube, beam) -> Cube:
         WCS whose first two axes are celestial.
     beam : `BeamSpec`
         The beam to apply.
+    threads : int, optional
+        Threads that convolve channels side by side; all cores by default.
 
     Returns
     -------
     `~pipeline.cube.Cube`
-        New cube in Jy/beam with ``beam`` set; the WCS is copied and the
-        provenance carried over.
+        New float32 cube in Jy/beam with ``beam`` set; the WCS is copied and
+        the provenance carried over.
 
     Raises
     ------
@@ -270,8 +294,10 @@ def convolve_with_beam(cube, beam) -> Cube:
     pixel-to-sky matrix at the reference pixel, so the summed Jy/pixel flux is
     kept, then multiplied by Omega_beam / Omega_pixel to give Jy/beam (check-values
     BM-03): a point source of flux F peaks at F Jy/beam.  The convolution uses
-    real FFTs over batches of channels on a grid padded by the kernel half-width
-    on every side (zeros beyond the edges), so nothing wraps around.
+    single-precision real FFTs, channel by channel, on a grid padded by the
+    kernel half-width on every side (zeros beyond the edges), so nothing wraps
+    around; values agree with a double-precision convolution to about 1e-6 of
+    the peak, far below any thermal noise.
 
     Examples
     --------
@@ -294,8 +320,8 @@ def convolve_with_beam(cube, beam) -> Cube:
     kernel = _kernel_from_covariance(_pixel_covariance(beam, matrix))
     pixel_area = abs(np.linalg.det(matrix)) * u.deg**2
     scale = float((beam.solid_angle / pixel_area).to_value(u.dimensionless_unscaled)) * cube.unit.to(JY_PER_PIXEL)
-    out = np.empty(cube.data.shape, dtype=np.result_type(cube.data.dtype, np.float32))
-    _convolve_planes(cube.data, kernel, out, scale=scale)
+    out = np.empty(cube.data.shape, dtype=np.float32)
+    _convolve_planes(cube.data, kernel, out, scale=scale, threads=threads)
     return Cube(out, cube.wcs.deepcopy(), _JY_PER_BEAM, beam=beam, provenance=dict(cube.provenance))
 
 

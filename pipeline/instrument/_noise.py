@@ -12,7 +12,7 @@ import numpy as np
 import scipy.fft
 
 from pipeline.cube import Cube
-from ._beam import (_CHANNELS_PER_BATCH, _JY_PER_BEAM, _celestial_pixel_matrix, _kernel_from_covariance,
+from ._beam import (_JY_PER_BEAM, _celestial_pixel_matrix, _kernel_from_covariance, for_each_channel,
                     _kernel_spectrum, _padded_shape, _pixel_covariance, _require_beam_spec, _strip)
 
 __all__ = ["single_dish_rms", "interferometer_rms", "add_thermal_noise"]
@@ -164,26 +164,27 @@ def _channel_generators(seed, first_channel, n_chan):
     return [np.random.default_rng([seed, first_channel + k]) for k in range(n_chan)]
 
 
-def _beam_correlated_noise(generators, array_shape, kernel) -> np.ndarray:
-    """Unit-variance Gaussian noise correlated on ``kernel``, made on a padded grid and cropped (no wrap-around)."""
-    n_chan, n_y, n_x = array_shape
+def _correlated_noise_maker(array_shape, kernel):
+    """Return ``make(generator)``: one channel of unit-variance noise correlated on ``kernel``.
+
+    White noise is drawn on a padded grid, convolved (single-precision FFTs) and
+    cropped, so no pixel sees wrapped-around noise.
+    """
+    _, n_y, n_x = array_shape
     padded = _padded_shape((n_y, n_x), kernel.shape)
-    spectrum = _kernel_spectrum(kernel, padded)
-    half_y, half_x = kernel.shape[0] // 2, kernel.shape[1] // 2
     # White noise of unit variance through a kernel K has variance sum(K^2).
-    scale = 1.0 / np.sqrt(np.sum(kernel**2))
-    noise = np.empty(array_shape)
-    for start in range(0, n_chan, _CHANNELS_PER_BATCH):
-        n_batch = min(_CHANNELS_PER_BATCH, n_chan - start)
-        white = np.stack([g.standard_normal(padded) for g in generators[start:start + n_batch]])
-        transformed = scipy.fft.rfft2(white, axes=(-2, -1))
+    spectrum = _kernel_spectrum(kernel, padded, dtype=np.float32) / np.float32(np.sqrt(np.sum(kernel**2)))
+    half_y, half_x = kernel.shape[0] // 2, kernel.shape[1] // 2
+
+    def make(generator):
+        transformed = scipy.fft.rfft2(generator.standard_normal(padded).astype(np.float32))
         transformed *= spectrum
-        correlated = scipy.fft.irfft2(transformed, s=padded, axes=(-2, -1))
-        noise[start:start + n_batch] = correlated[:, half_y:half_y + n_y, half_x:half_x + n_x] * scale
-    return noise
+        return scipy.fft.irfft2(transformed, s=padded)[half_y:half_y + n_y, half_x:half_x + n_x]
+
+    return make
 
 
-def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=0) -> Cube:
+def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=0, threads=None) -> Cube:
     """Return a copy of a Jy/beam cube with Gaussian thermal noise added.
 
     Parameters
@@ -203,6 +204,9 @@ def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=
     first_channel : int
         Index of the cube's first channel within the full band, so that a cube
         made in channel slabs gets exactly the noise of the cube made whole.
+    threads : int, optional
+        Threads that make channels side by side (all cores by default); the
+        noise does not depend on it.
 
     Returns
     -------
@@ -243,10 +247,16 @@ def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=
                              "or pass correlate_on_beam=False")
         _require_beam_spec(cube.beam, "cube.beam")
         covariance = _pixel_covariance(cube.beam, _celestial_pixel_matrix(cube.wcs))
-        noise = _beam_correlated_noise(generators, cube.data.shape, _kernel_from_covariance(covariance))
+        make_noise = _correlated_noise_maker(cube.data.shape, _kernel_from_covariance(covariance))
     else:
-        noise = np.stack([g.standard_normal(cube.data.shape[1:]) for g in generators])
-    data = (cube.data + float(rms_jy) * noise).astype(np.result_type(cube.data.dtype, np.float32), copy=False)
+        def make_noise(generator):
+            return generator.standard_normal(cube.data.shape[1:])
+    data = np.array(cube.data, dtype=np.result_type(cube.data.dtype, np.float32))
+
+    def add_channel(k):
+        data[k] += float(rms_jy) * make_noise(generators[k])
+
+    for_each_channel(data.shape[0], add_channel, threads=threads)
     provenance = {**cube.provenance,
                   "noise_rms_jy_per_beam": float(_strip(rms, _JY_PER_BEAM, name="rms")),
                   "noise_seed": int(seed),

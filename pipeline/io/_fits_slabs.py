@@ -8,7 +8,6 @@ computes DATASUM and CHECKSUM in chunks and renames the file to its final name.
 The header is the one :func:`~pipeline.io.write_cube` writes.
 """
 
-import io
 import math
 import os
 import pathlib
@@ -20,49 +19,14 @@ from astropy.io import fits
 from pipeline.errors import OutputError
 
 from ._atomic import PARTIAL_PREFIX, check_free_space, check_writable
-from ._fits_write import _beam_cards, _noise_cards, _unit_card
-from ._provenance import config_table, provenance_cards, provenance_table
+from ._checksum import float32_word_sum, ones_complement_sum, stamp_checksum
+from ._fits_write import cube_cards, extension_bytes, padded_bytes, primary_header
 
 __all__ = ["create_fits_cube", "write_fits_slab", "finalise_fits_cube"]
 
-_BLOCK = 2880
 _DTYPE = np.dtype(">f4")
-# Words summed at once when computing DATASUM (bounded memory, no uint64 overflow).
-_WORDS_PER_PASS = 1 << 24
-# Characters the checksum encoding avoids (FITS checksum convention, Seaman, Pence & Rots 2002).
-_EXCLUDED = (0x3A, 0x3B, 0x3C, 0x3D, 0x3E, 0x3F, 0x40, 0x5B, 0x5C, 0x5D, 0x5E, 0x5F, 0x60)
-
-
-def _padded(n_bytes):
-    return _BLOCK * math.ceil(n_bytes / _BLOCK)
-
-
-def _primary_header(array_shape, wcs, unit, beam, provenance, config_text, path):
-    n_chan, n_y, n_x = array_shape
-    header = fits.PrimaryHDU(data=np.zeros((1, 1, 1), dtype=np.float32), header=wcs.to_header()).header
-    header["NAXIS1"], header["NAXIS2"], header["NAXIS3"] = n_x, n_y, n_chan
-    cards = [_unit_card(unit, path)]
-    if beam is not None:
-        cards.extend(_beam_cards(beam))
-    cards.extend(_noise_cards(provenance or {}))
-    for card in [*cards, *provenance_cards(config_text)]:
-        header.append(card, end=True)
-    header.append(("CHECKSUM", "0" * 16, "HDU checksum"), end=True)
-    header.append(("DATASUM", "0", "data unit checksum"), end=True)
-    return header
-
-
-def _extension_bytes(config_text, provenance):
-    hdus = []
-    if config_text is not None:
-        hdus.append(config_table(config_text))
-    if provenance:
-        hdus.append(provenance_table(provenance))
-    if not hdus:
-        return b""
-    buffer = io.BytesIO()
-    fits.HDUList([fits.PrimaryHDU(), *hdus]).writeto(buffer, checksum=True)
-    return buffer.getvalue()[len(fits.PrimaryHDU().header.tostring()):]
+# Values read back per pass when computing DATASUM (bounded memory).
+_VALUES_PER_PASS = 1 << 22
 
 
 def create_fits_cube(path, *, array_shape, wcs, unit, beam=None, provenance=None, config_text=None,
@@ -116,9 +80,10 @@ def create_fits_cube(path, *, array_shape, wcs, unit, beam=None, provenance=None
     if path.exists() and not overwrite:
         raise OutputError(f"{path}: exists; pass --overwrite to replace it")
     check_writable(path.parent)
-    header = _primary_header(array_shape, wcs, unit, beam, provenance, config_text, path).tostring().encode("ascii")
-    data_bytes = _padded(_DTYPE.itemsize * math.prod(array_shape))
-    extensions = _extension_bytes(config_text, provenance)
+    cards = cube_cards(unit, beam, provenance or {}, path)
+    header = primary_header(array_shape, wcs, cards, config_text=config_text).tostring().encode("ascii")
+    data_bytes = padded_bytes(_DTYPE.itemsize * math.prod(array_shape))
+    extensions = extension_bytes(config_text, provenance)
     check_free_space(path.parent, len(header) + data_bytes + len(extensions))
     partial = path.with_name(f"{PARTIAL_PREFIX}{secrets.token_hex(6)}.{path.name}")
     try:
@@ -171,38 +136,6 @@ def write_fits_slab(partial, first_channel, data):
     del mapped
 
 
-def _ones_complement_sum(words_sum):
-    while words_sum >> 32:
-        words_sum = (words_sum & 0xFFFFFFFF) + (words_sum >> 32)
-    return words_sum
-
-
-def _word_sum(buffer):
-    words = np.frombuffer(buffer, dtype=">u4")
-    return int(np.sum(words, dtype=np.uint64))
-
-
-def _encode_checksum(value):
-    """ASCII encoding of a 32-bit checksum (FITS checksum convention, Seaman, Pence & Rots 2002)."""
-    characters = [0] * 16
-    for position in range(4):
-        byte = (value >> (24 - 8 * position)) & 0xFF
-        quotient, remainder = byte // 4 + 0x30, byte % 4
-        group = [quotient + remainder, quotient, quotient, quotient]
-        changed = True
-        while changed:
-            changed = False
-            for excluded in _EXCLUDED:
-                for pair in (0, 2):
-                    if group[pair] == excluded or group[pair + 1] == excluded:
-                        group[pair] += 1
-                        group[pair + 1] -= 1
-                        changed = True
-        for k in range(4):
-            characters[4 * k + position] = group[k]
-    return bytes(characters[-1:] + characters[:-1]).decode("ascii")
-
-
 def finalise_fits_cube(partial, path, *, overwrite=False):
     """Set DATASUM and CHECKSUM of a filled cube and rename it to ``path``.
 
@@ -230,19 +163,12 @@ def finalise_fits_cube(partial, path, *, overwrite=False):
     if path.exists() and not overwrite:
         raise OutputError(f"{path}: exists; pass --overwrite to replace it")
     header, offset, shape = _layout(partial)
-    n_words = _padded(_DTYPE.itemsize * math.prod(shape)) // 4
-    words = np.memmap(partial, dtype=">u4", mode="r", offset=offset, shape=(n_words,))
-    data_sum = 0
-    for start in range(0, n_words, _WORDS_PER_PASS):
-        data_sum += int(np.sum(words[start:start + _WORDS_PER_PASS], dtype=np.uint64))
-    del words
-    data_sum = _ones_complement_sum(data_sum)
-    header["DATASUM"] = str(data_sum)
-    header["CHECKSUM"] = "0" * 16
-    text = header.tostring().encode("ascii")
-    total = _ones_complement_sum(_word_sum(text) + data_sum)
-    header["CHECKSUM"] = _encode_checksum(0xFFFFFFFF - total)
-    text = header.tostring().encode("ascii")
+    mapped = np.memmap(partial, dtype=_DTYPE, mode="r", offset=offset, shape=shape)
+    per_pass = max(1, _VALUES_PER_PASS // (shape[1] * shape[2]))
+    words = sum(float32_word_sum(mapped[start:start + per_pass].astype(np.float32))
+                for start in range(0, shape[0], per_pass))
+    del mapped
+    text = stamp_checksum(header, ones_complement_sum(words))
     with open(partial, "r+b") as handle:
         handle.write(text)
         handle.flush()

@@ -20,6 +20,9 @@ ORIGIN, DATE, CWVERS, CWCFGSHA
 Files carry CHECKSUM and DATASUM and pass ``fitsverify`` with no warning.
 """
 
+import concurrent.futures
+import io
+import math
 import pathlib
 import re
 
@@ -30,6 +33,7 @@ from astropy.io import fits
 from pipeline.errors import OutputError
 
 from ._atomic import atomic_output, check_free_space
+from ._checksum import float32_word_sum, ones_complement_sum, stamp_checksum
 from ._provenance import config_table, provenance_cards, provenance_table
 
 __all__ = ["write_cube", "write_image", "fits_unit_string", "NOISE_KEYWORD", "NOISE_PROVENANCE_KEY"]
@@ -37,6 +41,10 @@ __all__ = ["write_cube", "write_image", "fits_unit_string", "NOISE_KEYWORD", "NO
 NOISE_KEYWORD = "NOISERMS"
 NOISE_PROVENANCE_KEY = "noise_rms_jy_per_beam"
 
+_BLOCK = 2880
+_DISK_DTYPE = np.dtype(">f4")
+# Values converted, summed and written per step (1 MiB of float32).
+_VALUES_PER_WRITE = 1 << 18
 _KEYWORD = re.compile(r"[A-Z0-9_-]{1,8}")
 _REPEATABLE = {"COMMENT", "HISTORY", ""}
 # Units that read best at the end of a FITS unit string ('Jy km s-1 beam-1').
@@ -115,6 +123,15 @@ def _noise_cards(provenance):
     return [(NOISE_KEYWORD, float(rms_jy_per_beam), "[Jy beam-1] thermal noise rms per channel")]
 
 
+def cube_cards(unit, beam, provenance, path):
+    """Return the BUNIT, beam (when set) and NOISERMS (when recorded) cards of a cube written to ``path``."""
+    cards = [_unit_card(unit, path)]
+    if beam is not None:
+        cards.extend(_beam_cards(beam))
+    cards.extend(_noise_cards(provenance))
+    return cards
+
+
 def _add_extra_cards(header, extra_cards):
     """Append caller cards, refusing bad keywords and keywords the writer already set."""
     for card in extra_cards or ():
@@ -126,22 +143,114 @@ def _add_extra_cards(header, extra_cards):
         header.append(tuple(card), end=True)
 
 
-def _write(data, wcs, cards, path, *, overwrite, config_text, provenance, extra_cards):
-    """Assemble the HDUs and write them through :func:`atomic_output`."""
-    primary = fits.PrimaryHDU(data=np.asarray(data, dtype=np.float32), header=wcs.to_header())
+def primary_header(shape, wcs, cards, *, config_text=None, extra_cards=None):
+    """Return the primary header of a float32 image of ``shape``, with CHECKSUM and DATASUM to be stamped.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        Array shape in numpy order, e.g. ``(n_chan, n_y, n_x)``.
+    wcs : `~astropy.wcs.WCS`
+        WCS of the image.
+    cards : list of tuple
+        Unit, beam and noise cards.
+    config_text : str, optional
+        Resolved run config, digested into the provenance cards.
+    extra_cards : sequence of tuple, optional
+        Caller cards appended after the others.
+
+    Returns
+    -------
+    `~astropy.io.fits.Header`
+    """
+    header = fits.Header([("SIMPLE", True, "conforms to FITS standard"), ("BITPIX", -32, "array data type"),
+                          ("NAXIS", len(shape), "number of array dimensions"),
+                          *((f"NAXIS{axis}", n) for axis, n in enumerate(reversed(shape), start=1)),
+                          ("EXTEND", True)])
+    header.extend(wcs.to_header().cards)
     for card in [*cards, *provenance_cards(config_text)]:
-        primary.header.append(card, end=True)
-    _add_extra_cards(primary.header, extra_cards)
-    hdus = [primary]
+        header.append(card, end=True)
+    _add_extra_cards(header, extra_cards)
+    header.append(("CHECKSUM", "0" * 16, "HDU checksum"), end=True)
+    header.append(("DATASUM", "0", "data unit checksum"), end=True)
+    return header
+
+
+def extension_bytes(config_text, provenance):
+    """Return the RUNCONFIG and PROVENANCE extensions as they follow the primary HDU on disk."""
+    hdus = []
     if config_text is not None:
         hdus.append(config_table(config_text))
     if provenance:
         hdus.append(provenance_table(provenance))
-    hdul = fits.HDUList(hdus)
-    n_bytes = sum(hdu.filebytes() for hdu in hdul)
+    if not hdus:
+        return b""
+    buffer = io.BytesIO()
+    fits.HDUList([fits.PrimaryHDU(), *hdus]).writeto(buffer, checksum=True)
+    return buffer.getvalue()[len(fits.PrimaryHDU().header.tostring()):]
+
+
+def padded_bytes(n_bytes):
+    """Return ``n_bytes`` rounded up to whole 2880-byte FITS blocks."""
+    return _BLOCK * math.ceil(n_bytes / _BLOCK)
+
+
+def _write_data(handle, data):
+    """Write ``data`` as big-endian float32 padded to a whole block; return the data unit's word sum.
+
+    The array goes about 1 MiB at a time, so memory stays bounded for
+    memory-mapped input (a non-contiguous array is first copied whole).  A second thread converts, sums and byte-swaps the
+    next piece into one of two buffers while this one writes the last.
+    """
+    flat = np.ascontiguousarray(data).reshape(-1)
+    starts = range(0, data.size, _VALUES_PER_WRITE)
+    native = [np.empty(min(_VALUES_PER_WRITE, data.size), dtype=np.float32) for _ in range(2)]
+    big_endian = [np.empty(buffer.shape, dtype=_DISK_DTYPE) for buffer in native]
+
+    def prepare(step):
+        start = starts[step]
+        stop = min(start + _VALUES_PER_WRITE, data.size)
+        piece = flat[start:stop]
+        if piece.dtype != np.float32:
+            converted = native[step % 2][:stop - start]
+            np.copyto(converted, piece, casting="unsafe")
+            piece = converted
+        swapped = big_endian[step % 2][:stop - start]
+        np.copyto(swapped, piece)
+        return swapped, float32_word_sum(piece)
+
+    words = 0
+    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as converter:
+        pending = converter.submit(prepare, 0)
+        for step in range(len(starts)):
+            swapped, piece_words = pending.result()
+            if step + 1 < len(starts):
+                pending = converter.submit(prepare, step + 1)
+            handle.write(swapped.data)
+            words += piece_words
+    n_bytes = _DISK_DTYPE.itemsize * data.size
+    handle.write(bytes(padded_bytes(n_bytes) - n_bytes))
+    return ones_complement_sum(words)
+
+
+def _write(data, wcs, cards, path, *, overwrite, config_text, provenance, extra_cards):
+    """Stream header, data and extensions through :func:`atomic_output`, then stamp the checksums."""
+    data = np.asarray(data)
+    header = primary_header(data.shape, wcs, cards, config_text=config_text, extra_cards=extra_cards)
+    header_bytes = header.tostring().encode("ascii")
+    extensions = extension_bytes(config_text, provenance)
+    n_bytes = len(header_bytes) + padded_bytes(_DISK_DTYPE.itemsize * data.size) + len(extensions)
     with atomic_output(path, overwrite=overwrite) as partial:
         check_free_space(partial.parent, n_bytes)
-        hdul.writeto(partial, checksum=True)
+        try:
+            with open(partial, "wb") as handle:
+                handle.write(header_bytes)
+                data_sum = _write_data(handle, data)
+                handle.write(extensions)
+                handle.seek(0)
+                handle.write(stamp_checksum(header, data_sum))
+        except OSError as err:
+            raise OutputError(f"{path}: cannot be written ({err.strerror or err})") from err
 
 
 def write_cube(cube, path, *, overwrite=False, config_text=None, extra_cards=None):
@@ -177,10 +286,7 @@ def write_cube(cube, path, *, overwrite=False, config_text=None, extra_cards=Non
     path = pathlib.Path(path)
     if not cube.wcs.has_celestial:
         raise ValueError(f"the cube WCS must have celestial axes; got CTYPE {list(cube.wcs.wcs.ctype)}")
-    cards = [_unit_card(cube.unit, path)]
-    if cube.beam is not None:
-        cards.extend(_beam_cards(cube.beam))
-    cards.extend(_noise_cards(cube.provenance))
+    cards = cube_cards(cube.unit, cube.beam, cube.provenance, path)
     _write(cube.data, cube.wcs, cards, path, overwrite=overwrite, config_text=config_text,
            provenance=cube.provenance, extra_cards=extra_cards)
 

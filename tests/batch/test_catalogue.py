@@ -68,7 +68,8 @@ def test_measurements_of_a_run_match_its_summary_in_jy_and_in_kelvin(small_run_c
     assert measured["hi_mass_recovered_msun"] == pytest.approx(summary["hi_mass_recovered"].to_value(u.Msun),
                                                                rel=1e-10)
     assert measured["w50_kms"] == pytest.approx(summary["w50"].to_value(u.km / u.s), rel=1e-10)
-    assert measured["peak_snr"] == pytest.approx(summary["peak_snr"], rel=1e-9)
+    # The catalogue's model is the float32 observed cube less its noise: equal to float32 round-off.
+    assert measured["peak_snr"] == pytest.approx(summary["peak_snr"], rel=1e-6)
     # Total flux against HI-06/HI-13 of check-values: with widths in radio velocity about nu_0,
     # M = K_M D^2 ∫S dv with no (1+z) factor; K_M = 2.34348e5 for A_10 = 2.8843e-15.
     assert measured["hi_mass_recovered_msun"] == pytest.approx(2.34348e5 * 10**2 * measured["total_flux_jy_kms"],

@@ -119,7 +119,8 @@ def test_convolution_equals_astropy_convolve_fft(make_wcs, rng):
     for channel in range(n_chan):
         expected = convolve_fft(data[channel], kernel, boundary="fill", fill_value=0.0,
                                 normalize_kernel=True) * pixels_per_beam
-        assert_allclose(observed.data[channel], expected, rtol=0, atol=1e-10 * np.abs(expected).max())
+        # Single-precision FFTs: float32 round-off (eps 1.2e-7) grows to ~1e-6 of the peak, not more.
+        assert_allclose(observed.data[channel], expected, rtol=0, atol=2e-6 * np.abs(expected).max())
     assert observed.unit == u.Jy / u.beam and observed.beam is beam
 
 
@@ -133,9 +134,10 @@ def test_point_source_peaks_at_its_flux_in_jy_per_beam_and_keeps_total_flux(make
     for channel in range(n_chan):
         plane = observed.data[channel]
         assert np.unravel_index(np.argmax(plane), plane.shape) == (18, 29)
-        assert plane[18, 29] == pytest.approx(2.5, rel=1e-9)
+        # The cube is float32 after the beam (eps 1.2e-7): peak and sum agree to round-off at that level.
+        assert plane[18, 29] == pytest.approx(2.5, rel=1e-6)
         pixels_per_beam = (Beam(30 * u.arcsec, 20 * u.arcsec).sr / (5 * u.arcsec) ** 2).decompose().value
-        assert plane.sum() / pixels_per_beam == pytest.approx(2.5, rel=1e-12)
+        assert plane.sum(dtype=np.float64) / pixels_per_beam == pytest.approx(2.5, rel=1e-6)
 
 
 @pytest.mark.parametrize("east_left", [True, False])
@@ -152,7 +154,7 @@ def test_elliptical_beam_orientation_is_east_of_north_on_the_sky(make_wcs, east_
     covariance = np.array([[np.sum(weight * dx * dx), np.sum(weight * dx * dy)],
                            [np.sum(weight * dx * dy), np.sum(weight * dy * dy)]])
     variances, vectors = np.linalg.eigh(covariance)
-    assert_allclose(np.sqrt(variances[::-1]) * FWHM_PER_SIGMA * 4.0, [40.0, 20.0], rtol=1e-6)
+    assert_allclose(np.sqrt(variances[::-1]) * FWHM_PER_SIGMA * 4.0, [40.0, 20.0], rtol=1e-5)
     major_x, major_y = vectors[:, 1]
     centre = wcs.celestial.pixel_to_world(30, 24)
     tip = wcs.celestial.pixel_to_world(30 + 5 * major_x, 24 + 5 * major_y)
@@ -162,7 +164,8 @@ def test_elliptical_beam_orientation_is_east_of_north_on_the_sky(make_wcs, east_
 
 
 def test_convolution_does_not_wrap_around_the_edges(make_wcs):
-    # A source on one edge must leave nothing on the opposite edge (a circular FFT would).
+    # A source on one edge must leave nothing on the opposite edge: a circular FFT would put a
+    # sizeable fraction of the peak there; float32 round-off stays near 1e-7 of the peak.
     n_chan, n_y, n_x = 1, 30, 41
     beam = BeamSpec(30 * u.arcsec, 20 * u.arcsec, 60 * u.deg)
     cases = [((15, 0), (slice(None), slice(n_x - 10, n_x))),
@@ -172,8 +175,8 @@ def test_convolution_does_not_wrap_around_the_edges(make_wcs):
     for (y, x), far in cases:
         image = convolve_with_beam(_delta_cube(make_wcs(n_x, n_y, n_chan), n_chan, n_y, n_x, y=y, x=x),
                                    beam).data[0]
-        assert image[y, x] == pytest.approx(1.0, rel=1e-9)
-        assert np.abs(image[far]).max() < 1e-12 * image.max()
+        assert image[y, x] == pytest.approx(1.0, rel=1e-6)
+        assert np.abs(image[far]).max() < 1e-6 * image.max()
 
 
 def test_uniform_field_of_one_jy_per_pixel_reads_pixels_per_beam(make_wcs):

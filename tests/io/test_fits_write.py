@@ -11,6 +11,7 @@ import radio_beam
 from astropy.io import fits
 from astropy.wcs import WCS
 
+from pipeline.cube import Cube
 from pipeline.errors import OutputError
 from pipeline.io import write_cube, write_image
 from pipeline.io._fits_write import fits_unit_string
@@ -236,3 +237,18 @@ def test_wcslib_finds_no_invalid_wcs_keyrecord(make_cube, beam, tmp_path):
     # wcsware -l -s: strict lint against the WCS standard (WCSLIB, check-values FW-10).
     report = subprocess.run([program, "-l", "-s", str(path)], capture_output=True, text=True, check=True)
     assert "No invalid WCS keyrecords were found" in report.stdout + report.stderr
+
+
+@pytest.mark.parametrize("layout", ["float64", "float32", "transposed view"])
+def test_cube_written_in_many_pieces_reads_back_and_its_checksums_verify(layout, make_wcs, tmp_path, rng):
+    # More than one 1 MiB piece (262144 values), an odd value count, float64 and non-contiguous input:
+    # astropy verifies CHECKSUM and DATASUM on open (and warns, an error here, when they do not agree).
+    shape = (3, 301, 347)
+    data = rng.standard_normal(shape)
+    if layout == "float32":
+        data = data.astype(np.float32)
+    elif layout == "transposed view":
+        data = np.ascontiguousarray(data.transpose(2, 1, 0)).transpose(2, 1, 0)
+    write_cube(Cube(data, make_wcs(array_shape=shape), u.Jy / u.beam), tmp_path / "big.fits")
+    with fits.open(tmp_path / "big.fits", checksum=True) as opened:
+        np.testing.assert_array_equal(opened[0].data, data.astype(np.float32))
