@@ -31,7 +31,9 @@ def moment0(cube) -> u.Quantity:
         In ``cube.unit`` × km/s (e.g. Jy/beam km/s).
     """
     widths = np.abs(np.gradient(channel_radio_velocities(cube.wcs).to_value(u.km / u.s)))
-    total = np.tensordot(widths, np.asarray(cube.data, dtype=np.float64), axes=(0, 0))
+    total = np.zeros(cube.data.shape[1:])
+    for width, plane in zip(widths, cube.data):   # channel by channel: no float64 copy of the cube
+        total += width * np.asarray(plane, dtype=np.float64)
     return total * cube.unit * (u.km / u.s)
 
 
@@ -48,7 +50,7 @@ def global_profile(cube) -> tuple[u.Quantity, u.Quantity]:
     if not cube.unit.is_equivalent(u.Jy / u.beam):
         raise ValueError(f"the cube must be in Jy/beam for a global profile; got {cube.unit}")
     scale = _beam_per_pixel(cube) * cube.unit.to(u.Jy / u.beam)
-    flux = np.asarray(cube.data, dtype=np.float64).sum(axis=(1, 2)) * scale * u.Jy
+    flux = np.sum(cube.data, axis=(1, 2), dtype=np.float64) * scale * u.Jy
     return channel_radio_velocities(cube.wcs), flux
 
 
