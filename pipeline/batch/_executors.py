@@ -16,14 +16,15 @@ import math
 import queue
 import secrets
 import time
+import warnings
 
 from distributed import Client, LocalCluster, WorkerPlugin, get_worker
 
-from pipeline.errors import ConfigError, OutputError
+from pipeline.errors import ConfigError, CubewrightWarning, OutputError
 
 from ._catalogue import write_catalogue
 from ._jobs import JobContext, SnapshotCache, describe_error, job_record, run_group
-from ._manifest import open_manifest
+from ._manifest import open_manifest, remove_stale_partials
 from ._slabs import SlabWork, finish_slab_job, render_slab, run_slab_job_here
 
 __all__ = ["BatchResult", "run_batch", "connect_client", "make_jobqueue_cluster", "CATALOGUE_NAME", "PLOT_NAME"]
@@ -148,7 +149,9 @@ def run_batch(batch, *, client=None, resume=False, force=False, threads="auto", 
         Skip jobs whose outputs exist and verify (SHA-256) in the manifest.
     force : bool
         See :func:`open_manifest`; also allows writing over outputs no
-        manifest accounts for.
+        manifest accounts for.  With ``resume`` or ``force``, the hidden
+        ``.partial-*`` files a killed run left in the output folder tree are
+        deleted first.
     threads : "auto", int or None
         ``run.threads`` given to every job: "auto" is 1 when several workers
         share a machine (or none is up yet) and the config's value otherwise;
@@ -165,9 +168,19 @@ def run_batch(batch, *, client=None, resume=False, force=False, threads="auto", 
     pipeline.errors.OutputError
         For a manifest that may not be continued (see :func:`open_manifest`)
         or outputs that would be overwritten.
+
+    Warns
+    -----
+    pipeline.errors.CubewrightWarning
+        Saying how many stale partial files were deleted, when there were any.
     """
     started = time.perf_counter()
     manifest = open_manifest(batch, resume=resume, force=force)
+    if resume or force:
+        removed = remove_stale_partials(batch.output_dir)
+        if removed:
+            warnings.warn(f"{batch.output_dir}: removed {len(removed)} stale partial file(s) (.partial-*) left by "
+                          "an interrupted run", CubewrightWarning, stacklevel=2)
     if not manifest.records and not force:
         _refuse_clobbering(batch)
     to_run = [job for job in batch.jobs if not manifest.is_complete(job)]

@@ -10,10 +10,15 @@
 
 A job counts as complete when its record says ``done``, its job digest equals
 the current job's, and every output exists with the recorded SHA-256.
+
+A batch killed outright (SIGKILL, a node lost) can leave the hidden temporaries
+that outputs are written to before their rename; `remove_stale_partials`
+clears them when the batch is resumed or forced.
 """
 
 import json
 import os
+import re
 from pathlib import Path
 
 from pipeline.errors import OutputError
@@ -21,11 +26,14 @@ from pipeline.io import atomic_output, check_writable
 
 from ._jobs import file_sha256
 
-__all__ = ["Manifest", "MANIFEST_NAME", "open_manifest"]
+__all__ = ["Manifest", "MANIFEST_NAME", "open_manifest", "remove_stale_partials"]
 
 MANIFEST_NAME = "manifest.json"
 _KIND = "cubewright batch manifest"
 _VERSION = 1
+# The name pipeline.io gives a file while it is written: ".partial-<hex>.<final name>"
+# (its PARTIAL_PREFIX, a random hex token, the final name); a test keeps the two in step.
+_PARTIAL_NAME = re.compile(r"\.partial-[0-9a-f]+\..+", re.DOTALL)
 
 
 class Manifest:
@@ -121,3 +129,41 @@ def open_manifest(batch, *, resume=False, force=False) -> Manifest:
                           f"{str(document.get('batch_digest'))[:12]}), not by {batch.source} (digest "
                           f"{batch.digest[:12]}); pass --force to resume with this config")
     return Manifest(path, batch, records=document["jobs"])
+
+
+def remove_stale_partials(folder) -> list:
+    """Delete the half-written temporaries a killed run left in ``folder`` and its sub-folders.
+
+    Only regular files named as `pipeline.io` names a file being written
+    (``.partial-<hex>.<final name>``) are removed; anything else, symbolic
+    links included, is left alone, and links to folders are not followed.
+    Call it only when no other run writes into ``folder``.
+
+    Parameters
+    ----------
+    folder : path-like
+        A batch output folder.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files removed, sorted.
+
+    Raises
+    ------
+    pipeline.errors.OutputError
+        If a stale file cannot be removed.
+    """
+    removed = []
+    for root, _, names in os.walk(folder):
+        for name in names:
+            path = Path(root) / name
+            if not _PARTIAL_NAME.fullmatch(name) or path.is_symlink() or not path.is_file():
+                continue
+            try:
+                path.unlink(missing_ok=True)
+            except OSError as err:
+                raise OutputError(f"{path}: cannot remove this stale partial file left by an interrupted run "
+                                  f"({err.strerror or err}); remove it by hand") from err
+            removed.append(path)
+    return sorted(removed)

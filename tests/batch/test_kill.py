@@ -2,6 +2,7 @@
 
 import json
 import os
+import secrets
 import signal
 import subprocess
 import sys
@@ -16,6 +17,7 @@ import pipeline
 from pipeline.batch import MANIFEST_NAME
 from pipeline.batch._jobs import file_sha256
 from pipeline.cli import main
+from pipeline.io._atomic import PARTIAL_PREFIX
 
 BODY = """
 name = "g_{index}"
@@ -23,6 +25,10 @@ name = "g_{index}"
 distances = ["8 Mpc", "9 Mpc", "10 Mpc", "11 Mpc", "12 Mpc", "13 Mpc"]
 """
 N_JOBS = 6
+
+
+def _partials(folder):
+    return sorted(path.name for path in folder.rglob(f"{PARTIAL_PREFIX}*"))
 
 
 def _n_records(manifest):
@@ -50,8 +56,15 @@ def test_killed_batch_resumes_to_complete_verified_outputs(write_batch, tmp_path
         assert process.returncode == 130 and b"interrupted" in err
     else:
         assert process.returncode == -signal.SIGKILL
-    assert main([str(a) for a in ("batch", path, "--workers", "1", "--resume", "--quiet")]) == 0
-    capsys.readouterr()
+    output_dir = tmp_path / "batch_out"
+    # A temporary as a killed writer leaves it (whatever the signal left behind is counted too).
+    (output_dir / f"{PARTIAL_PREFIX}{secrets.token_hex(6)}.g_5.fits").write_bytes(b"SIMPLE  =")
+    n_stale = len(_partials(output_dir))
+    assert main([str(a) for a in ("batch", path, "--workers", "1", "--resume")]) == 0
+    _, err = capsys.readouterr()
+    notes = [line for line in err.splitlines() if "stale partial" in line]
+    assert notes == [f"cubewright: warning: {output_dir}: removed {n_stale} stale partial file(s) (.partial-*) "
+                     "left by an interrupted run"], err
     document = json.loads(manifest.read_text())
     assert len(document["jobs"]) == N_JOBS
     for record in document["jobs"].values():
@@ -63,5 +76,4 @@ def test_killed_batch_resumes_to_complete_verified_outputs(write_batch, tmp_path
                     warnings.simplefilter("error")  # a CHECKSUM or DATASUM that fails warns
                     with fits.open(tmp_path / "batch_out" / output["path"], checksum=True) as opened:
                         opened[0].data.sum()
-    leftovers = [p.name for p in (tmp_path / "batch_out").iterdir() if p.name.startswith(".partial-")]
-    assert len(leftovers) <= 1, leftovers  # at most the file being written when the process was killed
+    assert _partials(output_dir) == []
