@@ -26,24 +26,17 @@ from pipeline.geometry import (GridSpec, ViewSpec, angular_momentum_axis, find_c
                                find_frame_velocity, make_cube_wcs, make_image_wcs, orient_chunk,
                                project_to_grid, resolve_distances, rotation_for_view,
                                velocity_dispersion_to_channels)
-from pipeline.grid import deposit_particles
+from pipeline.grid import accumulator, allocate_accumulator, deposit_particles
 from pipeline.instrument import (JY_PER_PIXEL, BeamSpec, add_thermal_noise, convolve_with_beam,
                                  cube_to_kelvin, interferometer_rms, single_dish_rms)
 from pipeline.io import atomic_output, check_free_space, check_writable, write_cube, write_image
+from pipeline.memory_plan import MemoryPlan, plan_memory
 from pipeline.particles import FieldSource, iter_positions, open_snapshot, select_sphere
 from pipeline.units import HI_REST_FREQUENCY
 
 __all__ = ["RunPlan", "RunResult", "Orientation", "RenderedChannels", "open_configured_snapshot", "plan_run",
            "orient_galaxy",
            "render_channels", "summarise", "run", "output_paths"]
-
-# Bytes held per particle of a chunk while it is projected and deposited: the
-# snapshot arrays (15 float64) plus the projected copies (about 10 float64).
-_BYTES_PER_CHUNK_PARTICLE = 25 * 8
-# The interpreter with numpy, astropy, h5py, matplotlib and the compiled deposit
-# loaded: 274 MB resident, measured on the project's reference machine.
-_BASELINE_BYTES = 280 * 2**20
-
 
 @dataclasses.dataclass(frozen=True)
 class RunPlan:
@@ -59,8 +52,9 @@ class RunPlan:
     view : `~pipeline.geometry.ViewSpec`
     noise_rms : `~astropy.units.Quantity` ['spectral flux density'] or None
         Per-channel rms in Jy/beam, None when noise is off.
-    peak_memory : `~astropy.units.Quantity` ['information']
-        Estimated peak memory of the run.
+    memory : `~pipeline.memory_plan.MemoryPlan`
+        Whether the cube stays in RAM or is memory-mapped, and the estimated
+        peak memory and scratch disk.
     """
 
     config: object
@@ -70,7 +64,12 @@ class RunPlan:
     distances: object
     view: ViewSpec
     noise_rms: u.Quantity | None
-    peak_memory: u.Quantity
+    memory: MemoryPlan
+
+    @property
+    def peak_memory(self) -> u.Quantity:
+        """Estimated peak resident memory of the run (see `memory`)."""
+        return self.memory.peak_memory
 
     @property
     def pixel_size_kpc(self) -> u.Quantity:
@@ -157,21 +156,6 @@ def _noise_rms(config, grid):
                               correlator_efficiency=config["noise.correlator_efficiency"], **common)
 
 
-def _estimate_peak_bytes(grid, chunk_particles):
-    """Peak resident bytes of a run: the loaded libraries plus the working set.
-
-    At most three float64 copies of the cube live at once (the beam-convolved
-    cube, the noise and their sum; the accumulator is freed after the beam),
-    plus one padded complex spectrum per batch of 16 channels (padding at most
-    doubles each sky axis), the float32 copy being written, and one chunk.
-    """
-    n_chan, n_y, n_x = grid.array_shape
-    n_voxels = n_chan * n_y * n_x
-    fft_bytes = 16 * (2 * n_y) * (2 * n_x) * min(n_chan, 16)
-    working = 3 * 8 * n_voxels + fft_bytes + 4 * n_voxels + _BYTES_PER_CHUNK_PARTICLE * chunk_particles
-    return _BASELINE_BYTES + working
-
-
 def _typical_temperature(snapshot):
     """Mass-weighted median temperature of the first chunk (cheap; for the channel check)."""
     chunk = next(iter(snapshot.iter_chunks()), None)
@@ -182,7 +166,7 @@ def _typical_temperature(snapshot):
     return chunk.temperature_k[order][np.searchsorted(cumulative, 0.5 * cumulative[-1])] * u.K
 
 
-def plan_run(config, *, snapshot=None) -> RunPlan:
+def plan_run(config, *, snapshot=None, allow_memory_map=True) -> RunPlan:
     """Resolve a validated config into specs and check the run is feasible.
 
     Parameters
@@ -192,6 +176,9 @@ def plan_run(config, *, snapshot=None) -> RunPlan:
         An already opened snapshot (or an in-memory one with the same
         interface) to use instead of opening ``snapshot.path``; batch runs pass
         one so that several views share one read.
+    allow_memory_map : bool
+        Memory-map the cube when it does not fit ``run.memory_budget`` in RAM;
+        with False that is an error (batch runs cut such cubes into slabs).
 
     Returns
     -------
@@ -202,7 +189,8 @@ def plan_run(config, *, snapshot=None) -> RunPlan:
     pipeline.errors.SnapshotError
         The snapshot is missing or malformed.
     pipeline.errors.MemoryBudgetError
-        The estimated peak memory exceeds ``run.memory_budget``.
+        The run does not fit ``run.memory_budget`` (see
+        `~pipeline.memory_plan.plan_memory`).
 
     Warns
     -----
@@ -225,15 +213,13 @@ def plan_run(config, *, snapshot=None) -> RunPlan:
                     position_angle=config["geometry.position_angle"],
                     orientation=config["geometry.orientation"],
                     rotation_matrix=config["geometry.rotation_matrix"])
-    peak = _estimate_peak_bytes(grid, min(config["snapshot.chunk_particles"], snapshot.n_particles)) * u.byte
-    budget = config["run.memory_budget"].to(u.byte)
-    if peak > budget:
-        raise MemoryBudgetError(
-            f"{config.source}:run.memory_budget: the run needs about {peak.to(u.GiB):.2f} "
-            f"for a {' x '.join(map(str, grid.array_shape))} cube, more than the budget of "
-            f"{budget.to(u.GiB):.2f}; reduce grid.n_x, grid.n_y or grid.n_chan, or raise run.memory_budget")
+    memory = plan_memory(grid.array_shape, beam_major_pixels=float(beam.major / grid.pixel_scale),
+                         chunk_particles=min(config["snapshot.chunk_particles"], snapshot.n_particles),
+                         threads=config["run.threads"] or None, budget=config["run.memory_budget"],
+                         scratch_directory=config["run.scratch_directory"] or config["output.directory"],
+                         allow_memory_map=allow_memory_map, source=config.source)
     plan = RunPlan(config=config, snapshot=snapshot, grid=grid, beam=beam, distances=distances,
-                   view=view, noise_rms=_noise_rms(config, grid), peak_memory=peak.to(u.MiB))
+                   view=view, noise_rms=_noise_rms(config, grid), memory=memory)
     _warn_about_sampling(plan)
     return plan
 
@@ -280,6 +266,20 @@ def _check_outputs(paths, plan, *, overwrite):
             raise OutputError(f"{path}: exists; pass --overwrite to replace it")
     n_voxels = int(np.prod(plan.grid.array_shape))
     check_free_space(folder, 4 * n_voxels + 16 * plan.grid.n_x * plan.grid.n_y + 2**20)
+
+
+def _check_scratch(plan, paths):
+    """Make sure the scratch folder takes the memory-mapped cubes (and the outputs, on the same disk)."""
+    folder = plan.memory.scratch_directory
+    try:
+        check_writable(folder)
+        needed = plan.memory.scratch.to_value(u.byte)
+        if paths and paths["cube"].parent.stat().st_dev == folder.stat().st_dev:
+            needed += 4 * int(np.prod(plan.grid.array_shape))
+        check_free_space(folder, needed)
+    except OutputError as err:
+        raise OutputError(f"{plan.config.source}:run.scratch_directory: {err} (the cube is memory-mapped there "
+                          f"because it does not fit run.memory_budget)") from err
 
 
 @dataclasses.dataclass(frozen=True)
@@ -391,7 +391,27 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
     if not 0 <= first < stop <= grid.n_chan:
         raise ValueError(f"'channels' must satisfy 0 <= first < stop <= {grid.n_chan}; got {channels!r}")
     progress = progress or (lambda n_read, n_total: None)
-    out = np.zeros((stop - first, grid.n_y, grid.n_x), dtype=np.float64)
+    shape = (stop - first, grid.n_y, grid.n_x)
+    # 0 bytes in RAM: memory-map; else a limit no cube reaches.
+    in_memory_limit = 0 if plan.memory.memory_mapped else 1 << 62
+    scratch = plan.memory.scratch_directory
+    with accumulator(shape, in_memory_limit=in_memory_limit, directory=scratch) as out:
+        totals = _deposit_chunks(plan, orientation, out, first, progress)
+        out /= grid.channel_width.to_value(u.Hz)          # Jy Hz per voxel -> Jy/pixel, in place
+        convolved = allocate_accumulator(shape, in_memory_limit=in_memory_limit, directory=scratch,
+                                         dtype=np.float32)
+        observed = convolve_with_beam(Cube(out, _slab_wcs(grid, first, stop), JY_PER_PIXEL), plan.beam,
+                                      threads=config["run.threads"] or None, out=convolved)
+    peak_model = float(observed.data.max())
+    if plan.noise_rms is not None:
+        observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"], first_channel=first,
+                                     threads=config["run.threads"] or None, in_place=True)
+    return RenderedChannels(cube=observed, peak_model=peak_model, **totals)
+
+
+def _deposit_chunks(plan, orientation, out, first, progress):
+    """Deposit every selected particle of the snapshot into ``out`` (Jy Hz per voxel); return the totals."""
+    config, grid = plan.config, plan.grid
     centre_kpc = orientation.centre.to_value(u.kpc)
     frame_kms = orientation.frame_velocity.to_value(u.km / u.s)
     radius_kpc = config["geometry.selection_radius"].to_value(u.kpc)
@@ -433,14 +453,8 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
                       f"(check snapshot.fields.smoothing_length.unit and grid.support_factor)",
                       OversizedParticleWarning, stacklevel=2)
     hi_mass = hi_mass_from_flux(total * u.Jy * u.Hz, plan.distances.luminosity_distance).to(u.Msun)
-    out /= grid.channel_width.to_value(u.Hz)          # Jy Hz per voxel -> Jy/pixel, in place
-    observed = convolve_with_beam(Cube(out, _slab_wcs(grid, first, stop), JY_PER_PIXEL), plan.beam)
-    del out                                              # the beam-convolved copy replaces it
-    peak_model = float(observed.data.max())
-    if plan.noise_rms is not None:
-        observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"], first_channel=first)
-    return RenderedChannels(cube=observed, peak_model=peak_model, hi_mass=hi_mass, n_selected=n_selected,
-                            total_weight=total, deposited_weight=deposited, n_contributions=contributions)
+    return dict(hi_mass=hi_mass, n_selected=n_selected, total_weight=total, deposited_weight=deposited,
+                n_contributions=contributions)
 
 
 def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, snapshot=None) -> RunResult:
@@ -474,9 +488,13 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, 
     >>> result.cube.wcs, result.cube.unit                  # doctest: +SKIP
     """
     plan = plan_run(config, snapshot=snapshot)
+    if plan.memory.memory_mapped and output_dir is not None and config["run.scratch_directory"] is None:
+        plan = dataclasses.replace(plan, memory=dataclasses.replace(plan.memory, scratch_directory=Path(output_dir)))
     paths = output_paths(config, output_dir=output_dir) if write else {}
     if write:
         _check_outputs(paths, plan, overwrite=overwrite)
+    if plan.memory.memory_mapped:
+        _check_scratch(plan, paths)
     orientation = orient_galaxy(plan)
     rendered = render_channels(plan, orientation, progress=progress)
     if rendered.deposited_weight <= 0:
@@ -502,7 +520,8 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
     orientation : Orientation
     rendered : RenderedChannels
         Covering every channel of the planned cube; the result's cube is in
-        the output unit (``emission.unit``).
+        the output unit (``emission.unit``).  A memory-mapped cube is turned
+        into K in place, so ``rendered.cube`` then holds K too.
     paths : dict, optional
         Output files to record in the result.
 
@@ -513,7 +532,10 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
     config, in_jy = plan.config, rendered.cube
     velocity, profile = global_profile(in_jy)
     recovered = hi_mass_from_flux(integrated_flux(in_jy), plan.distances.luminosity_distance)
-    observed = cube_to_kelvin(in_jy) if config["emission.unit"] == "K" else in_jy
+    if config["emission.unit"] == "K":
+        observed = cube_to_kelvin(in_jy, in_place=plan.memory.memory_mapped)
+    else:
+        observed = in_jy
     map0 = moment0(observed)
     if observed.unit.is_equivalent(u.K):
         column = column_density_from_brightness(map0)

@@ -5,7 +5,7 @@ import math
 import astropy.units as u
 
 from pipeline.instrument import jy_per_beam_to_kelvin
-from pipeline.units import HI_REST_FREQUENCY
+from pipeline.units import HI_REST_FREQUENCY, format_memory
 
 __all__ = ["format_plan", "format_summary"]
 
@@ -25,7 +25,8 @@ def format_plan(plan) -> str:
     -------
     str
         Pixel size (arcsec, kpc), beam FWHM in pixels, channel width (km/s, kHz),
-        band, noise per channel (Jy/beam and K), snapshot chunking, peak memory.
+        band, noise per channel (Jy/beam and K), snapshot chunking, where the cube
+        is held (RAM or memory-mapped), peak memory.
     """
     grid, beam, distances = plan.grid, plan.beam, plan.distances
     major_pix, minor_pix = plan.beam_fwhm_pixels
@@ -49,12 +50,17 @@ def format_plan(plan) -> str:
         kelvin = plan.noise_rms * jy_per_beam_to_kelvin(grid.centre_frequency, beam)
         lines.append(_line("noise per channel", f"{plan.noise_rms.to(u.mJy / u.beam):.4g} = {kelvin.to(u.mK):.4g} "
                                                 f"({plan.config['noise.mode']})"))
-    snapshot = plan.snapshot
+    snapshot, memory = plan.snapshot, plan.memory
     chunk = plan.config["snapshot.chunk_particles"]
     lines.append(_line("snapshot", f"{snapshot.n_particles} particles in {math.ceil(snapshot.n_particles / chunk)} "
-                                   f"chunk(s) of up to {chunk}"))
-    budget = plan.config["run.memory_budget"].to(u.GiB)
-    lines.append(_line("peak memory", f"about {plan.peak_memory.to(u.MiB):.1f} (budget {budget:.2f})"))
+                                   f"chunk(s) of up to {chunk}, about {format_memory(memory.chunk_memory)} each"))
+    if memory.memory_mapped:
+        lines.append(_line("cube memory", f"memory-mapped in {memory.scratch_directory} "
+                                          f"({format_memory(memory.scratch)} of scratch disk during the run)"))
+    else:
+        lines.append(_line("cube memory", "in RAM"))
+    budget = plan.config["run.memory_budget"]
+    lines.append(_line("peak memory", f"about {format_memory(plan.peak_memory)} (budget {format_memory(budget)})"))
     return "\n".join(lines)
 
 

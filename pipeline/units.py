@@ -8,7 +8,8 @@ and Hz.  Quantities are converted once, at the public edge, with
 import astropy.units as u
 import numpy as np
 
-__all__ = ["LENGTH", "VELOCITY", "MASS", "TEMPERATURE", "FREQUENCY", "HI_REST_FREQUENCY", "strip_units"]
+__all__ = ["LENGTH", "VELOCITY", "MASS", "TEMPERATURE", "FREQUENCY", "HI_REST_FREQUENCY", "strip_units",
+           "format_memory"]
 
 LENGTH = u.kpc
 VELOCITY = u.km / u.s
@@ -53,3 +54,27 @@ def strip_units(value, unit, *, name, equivalencies=None):
 
 #: Rest frequency of the hydrogen 21-cm line (Hellwig et al. 1970; check-values HI-01).
 HI_REST_FREQUENCY = 1_420_405_751.768 * u.Hz
+
+
+def format_memory(amount) -> str:
+    """Return an amount of memory or disk for people: KiB, MiB or GiB (IEC binary prefixes).
+
+    Parameters
+    ----------
+    amount : `~astropy.units.Quantity` ['information']
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> format_memory(51 * u.kB), format_memory(731.14 * u.MiB), format_memory(3 * u.GiB)
+    ('49.8 KiB', '731.1 MiB', '3.00 GiB')
+    """
+    n_bytes = amount.to_value(u.byte)
+    if n_bytes >= 2**30:
+        return f"{n_bytes / 2**30:.2f} GiB"
+    if n_bytes >= 2**20:
+        return f"{n_bytes / 2**20:.1f} MiB"
+    return f"{n_bytes / 2**10:.1f} KiB"

@@ -58,7 +58,7 @@ def estimate_jobs(batch) -> list:
                 snapshot = opened[job.snapshot_key]
                 n_slabs, maps = 1, config["output.moment0"]
                 try:
-                    plan = plan_run(config, snapshot=snapshot)
+                    plan = plan_run(config, snapshot=snapshot, allow_memory_map=False)
                     peak = plan.peak_memory
                 except MemoryBudgetError:
                     plan, ranges = plan_slabs(config, snapshot)

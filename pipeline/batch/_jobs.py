@@ -209,7 +209,7 @@ def run_job(job, context, cache):
             config = context.config_for(job)
             snapshot = cache.get(job, config)
             try:
-                plan = plan_run(config, snapshot=snapshot)
+                plan = plan_run(config, snapshot=snapshot, allow_memory_map=False)
             except MemoryBudgetError:
                 work = start_slab_job(job, context, cache, started=started)
                 return dataclasses.replace(work, warnings=tuple(str(item.message) for item in caught))

@@ -193,8 +193,11 @@ PARAMS = (
     Param("output.moment0", "bool", True, "also write the moment-0 map"),
     Param("output.preview", "bool", True, "also write a PNG preview"),
     # --- run ----------------------------------------------------------------------
-    Param("run.memory_budget", "memory", "8 GiB", "largest estimated peak memory allowed", positive=True),
-    Param("run.threads", "int", 0, "threads for the deposit (0 = all cores)", minimum=0),
+    Param("run.memory_budget", "memory", "8 GiB",
+          "largest estimated peak memory; a cube that does not fit in it is memory-mapped to disk", positive=True),
+    Param("run.scratch_directory", "path", None,
+          "folder for the memory-mapped working cube (unset: output.directory; relative to the config's folder)"),
+    Param("run.threads", "int", 0, "threads for the deposit, beam and noise (0 = all cores)", minimum=0),
 )
 
 PARAMS_BY_KEY = {param.key: param for param in PARAMS}

@@ -15,7 +15,6 @@ from pipeline.errors import OutputError
 __all__ = ["allocate_accumulator", "accumulator"]
 
 _FILE_PREFIX = "cubewright-accumulator-"
-_FILE_SUFFIX = ".float64"
 
 
 def _as_byte_count(value) -> int:
@@ -50,23 +49,26 @@ def _remove(path: str) -> None:
         os.unlink(path)
 
 
-def _allocate(array_shape, in_memory_limit, directory):
+def _allocate(array_shape, in_memory_limit, directory, dtype):
     """Return ``(array, finalizer)``; the finalizer (None in RAM) deletes the backing file when called."""
     shape = _as_array_shape(array_shape)
     limit = _as_byte_count(in_memory_limit)
-    n_bytes = 8 * shape[0] * shape[1] * shape[2]
+    dtype = np.dtype(dtype)
+    if dtype not in (np.float64, np.float32):
+        raise ValueError(f"'dtype' must be float64 or float32; got {dtype}")
+    n_bytes = dtype.itemsize * shape[0] * shape[1] * shape[2]
     if n_bytes <= limit:
-        return np.zeros(shape), None
+        return np.zeros(shape, dtype=dtype), None
     folder = Path(directory)
     try:
-        handle, path = tempfile.mkstemp(prefix=_FILE_PREFIX, suffix=_FILE_SUFFIX, dir=folder)
+        handle, path = tempfile.mkstemp(prefix=_FILE_PREFIX, suffix=f".{dtype.name}", dir=folder)
     except OSError as err:
         raise OutputError(f"{folder}: cannot create the memory-mapped accumulator there "
                           f"({err.strerror}); set 'directory' to a writable folder") from err
     try:
         # A file extended by truncate reads as zeros and takes disk space only where written.
         os.ftruncate(handle, n_bytes)
-        array = np.memmap(path, dtype=np.float64, mode="r+", shape=shape)
+        array = np.memmap(path, dtype=dtype, mode="r+", shape=shape)
     except OSError as err:
         _remove(path)
         raise OutputError(f"{path}: cannot map {n_bytes} bytes for the accumulator "
@@ -76,8 +78,8 @@ def _allocate(array_shape, in_memory_limit, directory):
     return array, weakref.finalize(array, _remove, path)
 
 
-def allocate_accumulator(array_shape, *, in_memory_limit, directory) -> np.ndarray:
-    """Return a zeroed float64 cube, in RAM if it fits under a limit, else memory-mapped from a file.
+def allocate_accumulator(array_shape, *, in_memory_limit, directory, dtype=np.float64) -> np.ndarray:
+    """Return a zeroed cube, in RAM if it fits under a limit, else memory-mapped from a file.
 
     Parameters
     ----------
@@ -85,22 +87,24 @@ def allocate_accumulator(array_shape, *, in_memory_limit, directory) -> np.ndarr
         ``(n_chan, n_y, n_x)``.
     in_memory_limit : `~astropy.units.Quantity` ['information'] or int
         Largest cube kept in RAM (an integer is a number of bytes); the cube
-        needs ``8 n_chan n_y n_x`` bytes.
+        needs ``itemsize n_chan n_y n_x`` bytes.
     directory : path-like
         Folder for the temporary file of a memory-mapped cube.
+    dtype : {numpy.float64, numpy.float32}
+        float64 to accumulate a deposit in; float32 for a cube after the beam.
 
     Returns
     -------
-    numpy.ndarray or numpy.memmap, float64, shape ``array_shape``
+    numpy.ndarray or numpy.memmap, shape ``array_shape``
         Zeros.  A memory-mapped cube lives in a file named
-        ``cubewright-accumulator-*.float64`` in ``directory``, deleted when
+        ``cubewright-accumulator-*.float64`` (or ``.float32``) in ``directory``, deleted when
         the array is garbage-collected or the interpreter exits; use
         :func:`accumulator` to delete it at a known point.
 
     Raises
     ------
     ValueError
-        If ``array_shape`` or ``in_memory_limit`` is malformed.
+        If ``array_shape``, ``in_memory_limit`` or ``dtype`` is malformed.
     pipeline.errors.OutputError
         If the file cannot be created or mapped in ``directory``.
 
@@ -111,21 +115,21 @@ def allocate_accumulator(array_shape, *, in_memory_limit, directory) -> np.ndarr
     >>> type(cube).__name__, cube.dtype, float(cube.sum())
     ('ndarray', dtype('float64'), 0.0)
     """
-    return _allocate(array_shape, in_memory_limit, directory)[0]
+    return _allocate(array_shape, in_memory_limit, directory, dtype)[0]
 
 
 @contextlib.contextmanager
-def accumulator(array_shape, *, in_memory_limit, directory):
-    """Yield a zeroed float64 cube (see :func:`allocate_accumulator`); delete its file, if any, on exit.
+def accumulator(array_shape, *, in_memory_limit, directory, dtype=np.float64):
+    """Yield a zeroed cube (see :func:`allocate_accumulator`); delete its file, if any, on exit.
 
     Parameters
     ----------
-    array_shape, in_memory_limit, directory
+    array_shape, in_memory_limit, directory, dtype
         As for :func:`allocate_accumulator`.
 
     Yields
     ------
-    numpy.ndarray or numpy.memmap, float64, shape ``array_shape``
+    numpy.ndarray or numpy.memmap, shape ``array_shape``
         Zeros to accumulate into.  Copy out what you need before the block
         ends: a memory-mapped cube's file is deleted on exit (on POSIX systems
         arrays still referring to it stay readable until released).
@@ -146,7 +150,7 @@ def accumulator(array_shape, *, in_memory_limit, directory):
     >>> type(cube).__name__, total, on_disk, after
     ('memmap', 1.5, 1, 0)
     """
-    array, finalizer = _allocate(array_shape, in_memory_limit, directory)
+    array, finalizer = _allocate(array_shape, in_memory_limit, directory, dtype)
     try:
         yield array
     finally:

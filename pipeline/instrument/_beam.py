@@ -261,7 +261,7 @@ def beam_kernel(beam, pixel_scale, *, shape=None) -> np.ndarray:
     return _kernel_from_covariance(_pixel_covariance(beam, pixel_matrix), shape)
 
 
-def convolve_with_beam(cube, beam, *, threads=None) -> Cube:
+def convolve_with_beam(cube, beam, *, threads=None, out=None) -> Cube:
     """Convolve a Jy/pixel cube with a Gaussian beam and return it in Jy/beam.
 
     Parameters
@@ -273,20 +273,23 @@ def convolve_with_beam(cube, beam, *, threads=None) -> Cube:
         The beam to apply.
     threads : int, optional
         Threads that convolve channels side by side; all cores by default.
+    out : numpy.ndarray, optional
+        float32 array of the cube's shape to write into (e.g. a memory map);
+        a new array by default.
 
     Returns
     -------
     `~pipeline.cube.Cube`
-        New float32 cube in Jy/beam with ``beam`` set; the WCS is copied and
-        the provenance carried over.
+        New float32 cube in Jy/beam with ``beam`` set, holding ``out`` when
+        given; the WCS is copied and the provenance carried over.
 
     Raises
     ------
     TypeError
         If ``beam`` is not a `BeamSpec`.
     ValueError
-        If the cube is not in Jy/pixel, holds NaN or Inf, or its WCS does not
-        start with the celestial axes.
+        If the cube is not in Jy/pixel, holds NaN or Inf, its WCS does not
+        start with the celestial axes, or ``out`` is not float32 of its shape.
 
     Notes
     -----
@@ -320,7 +323,11 @@ def convolve_with_beam(cube, beam, *, threads=None) -> Cube:
     kernel = _kernel_from_covariance(_pixel_covariance(beam, matrix))
     pixel_area = abs(np.linalg.det(matrix)) * u.deg**2
     scale = float((beam.solid_angle / pixel_area).to_value(u.dimensionless_unscaled)) * cube.unit.to(JY_PER_PIXEL)
-    out = np.empty(cube.data.shape, dtype=np.float32)
+    if out is None:
+        out = np.empty(cube.data.shape, dtype=np.float32)
+    elif out.dtype != np.float32 or out.shape != cube.data.shape:
+        raise ValueError(f"'out' must be a float32 array of shape {cube.data.shape}; "
+                         f"got {out.dtype} of shape {out.shape}")
     _convolve_planes(cube.data, kernel, out, scale=scale, threads=threads)
     return Cube(out, cube.wcs.deepcopy(), _JY_PER_BEAM, beam=beam, provenance=dict(cube.provenance))
 
@@ -382,7 +389,7 @@ def _channel_frequencies(wcs, n_chan) -> u.Quantity:
                          f"a velocity axis needs RESTFRQ in the header") from err
 
 
-def cube_to_kelvin(cube) -> Cube:
+def cube_to_kelvin(cube, *, in_place=False) -> Cube:
     """Return a Jy/beam cube in brightness temperature (K), channel by channel.
 
     Parameters
@@ -390,6 +397,9 @@ def cube_to_kelvin(cube) -> Cube:
     cube : `~pipeline.cube.Cube`
         Cube in Jy/beam (or a multiple) with ``beam`` set and a spectral third
         WCS axis (FREQ, VRAD or any type WCSLIB can turn into frequency).
+    in_place : bool
+        Scale the cube's own float array channel by channel instead of making a
+        copy (for a cube too large for a second copy).
 
     Returns
     -------
@@ -413,6 +423,11 @@ def cube_to_kelvin(cube) -> Cube:
     _require_beam_spec(cube.beam, "cube.beam")
     frequency = _channel_frequencies(cube.wcs, cube.data.shape[0])
     factor = (jy_per_beam_to_kelvin(frequency, cube.beam) * cube.unit).to_value(u.K)
-    data = (cube.data * factor[:, np.newaxis, np.newaxis]).astype(
-        np.result_type(cube.data.dtype, np.float32), copy=False)
+    if in_place:
+        data = cube.data
+        for k, plane in enumerate(data):
+            plane *= factor[k]
+    else:
+        data = (cube.data * factor[:, np.newaxis, np.newaxis]).astype(
+            np.result_type(cube.data.dtype, np.float32), copy=False)
     return Cube(data, cube.wcs.deepcopy(), u.K, beam=cube.beam, provenance=dict(cube.provenance))

@@ -184,7 +184,8 @@ def _correlated_noise_maker(array_shape, kernel):
     return make
 
 
-def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=0, threads=None) -> Cube:
+def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=0, threads=None,
+                      in_place=False) -> Cube:
     """Return a copy of a Jy/beam cube with Gaussian thermal noise added.
 
     Parameters
@@ -207,6 +208,8 @@ def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=
     threads : int, optional
         Threads that make channels side by side (all cores by default); the
         noise does not depend on it.
+    in_place : bool
+        Add the noise to the cube's own float array instead of a copy.
 
     Returns
     -------
@@ -251,7 +254,7 @@ def add_thermal_noise(cube, *, rms, seed, correlate_on_beam=True, first_channel=
     else:
         def make_noise(generator):
             return generator.standard_normal(cube.data.shape[1:])
-    data = np.array(cube.data, dtype=np.result_type(cube.data.dtype, np.float32))
+    data = cube.data if in_place else np.array(cube.data, dtype=np.result_type(cube.data.dtype, np.float32))
 
     def add_channel(k):
         data[k] += float(rms_jy) * make_noise(generators[k])
