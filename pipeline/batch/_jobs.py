@@ -28,6 +28,7 @@ from pipeline.instrument import add_thermal_noise, cube_to_kelvin
 from pipeline.particles import load_into_memory
 
 from ._catalogue import measure_channels, noise_correlation, summarise_sums
+from ._spec import job_config
 
 __all__ = ["JobContext", "SnapshotCache", "run_job", "run_group", "job_record", "file_sha256",
            "reset_peak_memory", "peak_memory_mib", "channel_axes", "pixels_per_beam", "describe_error",
@@ -68,7 +69,7 @@ class JobContext:
     def config_for(self, job, *, extra=()):
         """Return the validated run config of ``job``."""
         base = config_from_dict(tomllib.loads(self.base_text), source=self.base_source, base_dir=self.base_dir)
-        return base.replace((*job.overrides, *self.extra_overrides, *extra))
+        return job_config(base, job, extra=(*self.extra_overrides, *extra))
 
 
 class SnapshotCache:

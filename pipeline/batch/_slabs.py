@@ -100,7 +100,7 @@ def plan_slabs(config, snapshot):
         return plan_run(roomy.replace([f"grid.n_chan={n_chan}"]), snapshot=snapshot).peak_memory.to(u.byte)
 
     if peak(1) > budget:
-        raise MemoryBudgetError(f"{config.source}:run.memory_budget: even one channel of the "
+        raise MemoryBudgetError(f"{config.where('run.memory_budget')}: even one channel of the "
                                 f"{' x '.join(map(str, plan.grid.array_shape))} cube needs about "
                                 f"{peak(1).to(u.MiB):.1f}, more than the budget of {budget.to(u.MiB):.1f}; "
                                 "reduce grid.n_x or grid.n_y, or raise run.memory_budget")

@@ -9,7 +9,10 @@ A batch file is TOML with three sections::
 :func:`load_batch` expands the sweep into one `JobSpec` per combination (the
 Cartesian product, in the order snapshots, views, distances, instruments, keys),
 validates every job's run config and checks the output names before anything
-runs.  Errors read ``file:key.path: expected ...; got ...``.
+runs.  Errors read ``file:key.path: expected ...; got ...``, a bad swept value
+included: each job's overrides carry the batch key that gave them
+(``batch.toml:sweep.keys.grid.n_x[1]``), in place of the ``--set`` of the
+command line.
 """
 
 import dataclasses
@@ -30,7 +33,7 @@ import numpy as np
 from pipeline.config import PARAMS_BY_KEY, config_from_dict, load_config, read_toml_file
 from pipeline.errors import ConfigError
 
-__all__ = ["BatchSpec", "JobSpec", "load_batch", "uniform_sphere_views", "toml_literal"]
+__all__ = ["BatchSpec", "JobSpec", "load_batch", "uniform_sphere_views", "toml_literal", "job_config"]
 
 _TOP = ("batch", "sweep", "cluster")
 _BATCH_KEYS = ("run_config", "output_directory", "name", "detection_threshold", "mask_level")
@@ -73,6 +76,10 @@ class JobSpec:
     overrides : tuple of str
         ``"key.path=value"`` strings applied on top of the base run config,
         output.directory and output.name included.
+    origins : tuple of str
+        Where each override comes from in the batch file, e.g.
+        ``"batch.toml:sweep.keys.grid.n_x[1]"``: errors about its value start
+        with it (`RunConfig.replace` ``origin``).
     parameters : dict
         Template fields of the job: ``snapshot`` (file stem), ``view``,
         ``inclination`` and ``position_angle`` (deg), ``distance`` (Mpc, or
@@ -88,6 +95,7 @@ class JobSpec:
     index: int
     name: str
     overrides: tuple
+    origins: tuple
     parameters: dict
     snapshot_key: str
     digest: str
@@ -140,7 +148,13 @@ class BatchSpec:
 
     def job_config(self, job, *, extra=()):
         """Return the run config of ``job``, with ``extra`` overrides on top."""
-        return self.base_config().replace((*job.overrides, *extra))
+        return job_config(self.base_config(), job, extra=extra)
+
+
+def job_config(base, job, *, extra=()):
+    """Return ``base`` with the overrides of ``job`` (named by their places in the batch file) and ``extra``."""
+    config = base.replace(job.overrides, origin=job.origins)
+    return config.replace(extra) if extra else config
 
 
 def toml_literal(value) -> str:
@@ -277,7 +291,8 @@ def _resolve(folder, text):
 
 
 def _expand_snapshots(origin, folder, entries):
-    paths = []
+    """Return [(snapshot path, the sweep.snapshots entry that named it)]."""
+    paths, places = [], []
     for position, entry in enumerate(_list(origin, "sweep.snapshots", entries)):
         key = f"sweep.snapshots[{position}]"
         entry = _text(origin, key, entry)
@@ -288,20 +303,22 @@ def _expand_snapshots(origin, folder, entries):
                 raise ConfigError(f"{origin}:{key}: expected a pattern matching snapshot files; "
                                   f"got {entry!r}, which matches no file")
             paths.extend(matches)
+            places.extend([key] * len(matches))
         else:
             path = _resolve(folder, entry)
             if not path.is_file():
                 raise ConfigError(f"{origin}:{key}: expected an existing snapshot file; got {entry!r} "
                                   f"({path} not found)")
             paths.append(path)
+            places.append(key)
     duplicates = sorted({os.fspath(path) for path in paths if paths.count(path) > 1})
     if duplicates:
         raise ConfigError(f"{origin}:sweep.snapshots: expected each snapshot once; got {duplicates[0]} twice")
-    return paths
+    return list(zip(paths, places))
 
 
 def _expand_views(origin, table):
-    """Return [(view index, inclination override text or None, position angle text or None)]."""
+    """Return [(view index, ((inclination override, its place), (position angle override, its place)))]."""
     prefix = "sweep.views"
     _check_keys(origin, prefix, table, _VIEW_KEYS)
     forms = [form for form, keys in (("pairs", ("pairs",)), ("grid", ("inclinations", "position_angles")),
@@ -323,15 +340,17 @@ def _expand_views(origin, table):
                                   f"['60 deg', '30 deg']; got {_show(pair)}")
             inclination = _quantity(origin, f"{key}[0]", pair[0], "an angle", "60 deg")
             position_angle = _quantity(origin, f"{key}[1]", pair[1], "an angle", "30 deg")
-            views.append((inclination, position_angle))
+            views.append(((inclination, f"{key}[0]"), (position_angle, f"{key}[1]")))
     elif form == "grid":
         for key in ("inclinations", "position_angles"):
             if key not in table:
                 raise ConfigError(f"{origin}:{prefix}.{key}: expected a list of angles to go with the other "
                                   "axis of the grid, e.g. ['0 deg', '90 deg']; got nothing")
-        inclinations = [_quantity(origin, f"{prefix}.inclinations[{k}]", raw, "an angle", "60 deg")
+        inclinations = [(_quantity(origin, f"{prefix}.inclinations[{k}]", raw, "an angle", "60 deg"),
+                         f"{prefix}.inclinations[{k}]")
                         for k, raw in enumerate(_list(origin, f"{prefix}.inclinations", table["inclinations"]))]
-        angles = [_quantity(origin, f"{prefix}.position_angles[{k}]", raw, "an angle", "30 deg")
+        angles = [(_quantity(origin, f"{prefix}.position_angles[{k}]", raw, "an angle", "30 deg"),
+                   f"{prefix}.position_angles[{k}]")
                   for k, raw in enumerate(_list(origin, f"{prefix}.position_angles", table["position_angles"]))]
         views = list(itertools.product(inclinations, angles))
     else:
@@ -344,9 +363,10 @@ def _expand_views(origin, table):
         if not isinstance(hemisphere, bool):
             raise ConfigError(f"{origin}:{prefix}.hemisphere: expected true or false; got {_show(hemisphere)}")
         inclination, position_angle = uniform_sphere_views(n_views, seed=seed, hemisphere=hemisphere)
-        views = list(zip(inclination, position_angle))
-    return [(index, f"{float(i.to_value(u.deg))!r} deg", f"{float(pa.to_value(u.deg))!r} deg")
-            for index, (i, pa) in enumerate(views)]
+        views = [((i, f"{prefix}.random"), (pa, f"{prefix}.random")) for i, pa in zip(inclination, position_angle)]
+    return [(index, ((f"geometry.inclination={toml_literal(f'{float(i.to_value(u.deg))!r} deg')}", i_place),
+                     (f"geometry.position_angle={toml_literal(f'{float(pa.to_value(u.deg))!r} deg')}", pa_place)))
+            for index, ((i, i_place), (pa, pa_place)) in enumerate(views)]
 
 
 def _flatten_overrides(origin, prefix, table, *, leaf_is_list):
@@ -489,22 +509,29 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
                               low_open=True))
     mask_level = float(_number(origin, "batch.mask_level", batch.get("mask_level", 0.5), low=0, low_open=True))
 
-    snapshots = [(None, base["snapshot.path"])]
+    # Each axis of the sweep is a list of settings: (override text, place in the batch file) pairs.
+    snapshots = [(base["snapshot.path"], ())]
     if "snapshots" in sweep:
-        snapshots = [(f"snapshot.path={toml_literal(os.fspath(p))}", p)
-                     for p in _expand_snapshots(origin, folder, sweep["snapshots"])]
-    views = [(None, None, None)]
+        snapshots = [(path, ((f"snapshot.path={toml_literal(os.fspath(path))}", place),))
+                     for path, place in _expand_snapshots(origin, folder, sweep["snapshots"])]
+    views = [(None, ())]
     if "views" in sweep:
         views = _expand_views(origin, _table(origin, "sweep.views", sweep["views"]))
     if "distances" in sweep and "redshifts" in sweep:
         raise ConfigError(f"{origin}:sweep.redshifts: expected distances or redshifts, not both; got both")
-    distances = [None]
+    distances = [()]
     if "distances" in sweep:
-        distances = [f"observer.distance={toml_literal(_quantity(origin, f'sweep.distances[{k}]', raw, 'a length', '8.5 Mpc').to_string())}"
-                     for k, raw in enumerate(_list(origin, "sweep.distances", sweep["distances"]))]
+        distances = []
+        for k, raw in enumerate(_list(origin, "sweep.distances", sweep["distances"])):
+            place = f"sweep.distances[{k}]"
+            distance = _quantity(origin, place, raw, "a length", "8.5 Mpc")
+            distances.append(((f"observer.distance={toml_literal(distance.to_string())}", place),))
     elif "redshifts" in sweep:
-        distances = [f"observer.redshift={toml_literal(float(_number(origin, f'sweep.redshifts[{k}]', raw, low=0)))}"
-                     for k, raw in enumerate(_list(origin, "sweep.redshifts", sweep["redshifts"]))]
+        distances = []
+        for k, raw in enumerate(_list(origin, "sweep.redshifts", sweep["redshifts"])):
+            place = f"sweep.redshifts[{k}]"
+            redshift = float(_number(origin, place, raw, low=0))
+            distances.append(((f"observer.redshift={toml_literal(redshift)}", place),))
     instruments = [("base", ())]
     if "instruments" in sweep:
         table = _table(origin, "sweep.instruments", sweep["instruments"])
@@ -515,7 +542,8 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
         for name, overrides in table.items():
             place = f"sweep.instruments.{name}"
             flat = _flatten_overrides(origin, place, _table(origin, place, overrides), leaf_is_list=False)
-            instruments.append((name, tuple(f"{key}={toml_literal(value)}" for key, (value, _) in flat.items())))
+            instruments.append((name, tuple((f"{key}={toml_literal(value)}", where)
+                                            for key, (value, where) in flat.items())))
     swept = {}
     if "keys" in sweep:
         swept = _flatten_overrides(origin, "sweep.keys", _table(origin, "sweep.keys", sweep["keys"]), leaf_is_list=True)
@@ -524,24 +552,17 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
     _check_template(origin, template, fields)
 
     jobs, by_name = [], {}
-    key_values = [[(key, value) for value in raw] for key, (raw, _) in swept.items()]
+    key_values = [[(key, value, (f"{key}={toml_literal(value)}", f"{place}[{k}]")) for k, value in enumerate(raw)]
+                  for key, (raw, place) in swept.items()]
     combinations = itertools.product(snapshots, views, distances, instruments, itertools.product(*key_values))
     for index, (snapshot, view, distance, instrument, keyed) in enumerate(combinations):
-        overrides = [text for text in (snapshot[0],) if text]
-        if view[1] is not None:
-            overrides += [f"geometry.inclination={toml_literal(view[1])}",
-                          f"geometry.position_angle={toml_literal(view[2])}"]
-        overrides += [text for text in (distance,) if text]
-        overrides += list(instrument[1])
-        overrides += [f"{key}={toml_literal(value)}" for key, value in keyed]
-        place = _job_place(snapshot, view, distance, instrument, keyed, swept)
-        try:
-            config = base.replace(overrides)
-        except ConfigError as err:
-            raise ConfigError(f"{origin}:{place}: job {index} has a bad run config: {err}") from err
-        parameters = {"index": index, "snapshot": Path(snapshot[1]).stem, "view": view[0],
+        settings = [*snapshot[1], *view[1], *distance, *instrument[1], *(setting for _, _, setting in keyed)]
+        overrides = [text for text, _ in settings]
+        places = [f"{origin}:{place}" for _, place in settings]
+        config = base.replace(overrides, origin=places)
+        parameters = {"index": index, "snapshot": Path(snapshot[0]).stem, "view": view[0],
                       **_base_parameters(config), "instrument": instrument[0],
-                      **{swept_fields[key]: value for key, value in keyed}}
+                      **{swept_fields[key]: value for key, value, _ in keyed}}
         name = _format_name(origin, template, parameters, output_dir)
         if name in by_name:
             other = by_name[name]
@@ -551,11 +572,12 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
         folder_part, _, leaf = name.rpartition("/")
         job_dir = output_dir / folder_part if folder_part else output_dir
         overrides += [f"output.directory={toml_literal(os.fspath(job_dir))}", f"output.name={toml_literal(leaf)}"]
+        places += [f"{origin}:batch.output_directory", f"{origin}:batch.name"]
         snapshot_overrides = sorted(text for text in overrides if text.startswith("snapshot."))
         snapshot_key = json.dumps([os.fspath(config["snapshot.path"]), snapshot_overrides])
         digest = hashlib.sha256(json.dumps([base.digest, overrides]).encode()).hexdigest()
-        job = JobSpec(index=index, name=name, overrides=tuple(overrides), parameters=parameters,
-                      snapshot_key=snapshot_key, digest=digest)
+        job = JobSpec(index=index, name=name, overrides=tuple(overrides), origins=tuple(places),
+                      parameters=parameters, snapshot_key=snapshot_key, digest=digest)
         by_name[name] = job
         jobs.append(job)
     digest = hashlib.sha256(json.dumps([base.digest, [(job.name, job.overrides) for job in jobs], threshold,
@@ -564,15 +586,3 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
                      output_dir=output_dir, jobs=tuple(jobs), detection_threshold=threshold,
                      mask_level=mask_level, cluster=cluster, digest=digest)
 
-
-def _job_place(snapshot, view, distance, instrument, keyed, swept):
-    """The batch key most likely to blame for a job whose run config is refused."""
-    if keyed:
-        return swept[keyed[-1][0]][1]
-    if instrument[1]:
-        return f"sweep.instruments.{instrument[0]}"
-    if distance is not None:
-        return "sweep.distances" if distance.startswith("observer.distance") else "sweep.redshifts"
-    if view[1] is not None:
-        return "sweep.views"
-    return "sweep.snapshots" if snapshot[0] else "batch.run_config"

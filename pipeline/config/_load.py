@@ -5,6 +5,10 @@ Values come in layers: the defaults of the parameter table, then the config file
 key.  Some keys are alternatives (a field's ``dataset`` or its constant
 ``value``; ``observer.distance`` or ``observer.redshift``): one layer may give
 only one of them, and a later layer that gives one drops the others given below it.
+
+Every given value remembers where it came from (``file:key.path``,
+``--set:key.path``, or a place a caller of `RunConfig.replace` names, such as a
+batch file's sweep key), and an error about it starts with that place.
 """
 
 import copy
@@ -29,7 +33,7 @@ from ._schema import PARAMS, PARAMS_BY_KEY, SNAPSHOT_FIELDS
 
 __all__ = ["RunConfig", "load_config", "config_from_dict", "read_toml_file", "describe_config"]
 
-# How errors name a value that came from an override.
+# How errors name a value that came from an override, unless the caller names another origin.
 _OVERRIDE_ORIGIN = "--set"
 
 _ROTATION_TOLERANCE = 1e-6
@@ -86,15 +90,16 @@ def _nearest_key(key):
     return next((other for other in PARAMS_BY_KEY if other.rsplit(".", 1)[-1] == name), None)
 
 
-def _unknown_key_error(origin, key, *, is_table):
+def _unknown_key_error(origin, key, *, is_table, is_place=False):
     prefix = key.rpartition(".")[0]
     what = "section" if is_table or not prefix else "key"
+    lead = f"{origin}: unknown {what} '{key}'" if is_place else f"{origin}:{key}: unknown {what}"
     nearest = _nearest_key(key)
     if nearest is not None:
-        return ConfigError(f"{origin}:{key}: unknown {what}; did you mean '{nearest}'?")
+        return ConfigError(f"{lead}; did you mean '{nearest}'?")
     level = prefix if prefix in _CHILDREN else ""
     listing = "sections are" if not level else f"keys in [{level}] are"
-    return ConfigError(f"{origin}:{key}: unknown {what}; the valid {listing}: {', '.join(_CHILDREN[level])}")
+    return ConfigError(f"{lead}; the valid {listing}: {', '.join(_CHILDREN[level])}")
 
 
 def _flatten(table, origin):
@@ -120,17 +125,18 @@ def _flatten(table, origin):
     return flat
 
 
-def _parse_override(text):
-    """Return ``(key, raw value)`` from ``"key.path=value"``."""
+def _parse_override(text, origin, is_place):
+    """Return ``(key, raw value)`` from ``"key.path=value"`` (errors name ``origin``, see `_override_layer`)."""
     key, sep, value_text = text.partition("=")
     key = key.strip()
     if not sep or not key:
-        raise ConfigError(f"{_OVERRIDE_ORIGIN}: expected 'key.path=value', e.g. 'grid.n_x=64'; got {text!r}")
+        raise ConfigError(f"{origin}: expected 'key.path=value', e.g. 'grid.n_x=64'; got {text!r}")
     if key not in PARAMS_BY_KEY:
         if key in _SECTIONS:
             example = next(other for other in PARAMS_BY_KEY if other.startswith(key + "."))
-            raise ConfigError(f"{_OVERRIDE_ORIGIN}:{key}: is a section, not a key; give a key, e.g. '{example}=...'")
-        raise _unknown_key_error(_OVERRIDE_ORIGIN, key, is_table=False)
+            lead = f"{origin}: '{key}'" if is_place else f"{origin}:{key}:"
+            raise ConfigError(f"{lead} is a section, not a key; give a key, e.g. '{example}=...'")
+        raise _unknown_key_error(origin, key, is_table=False, is_place=is_place)
     try:
         document = tomllib.loads(f"value = {value_text}")
     except tomllib.TOMLDecodeError:
@@ -147,6 +153,22 @@ def _check_override_texts(overrides):
     if isinstance(overrides, str) or not all(isinstance(text, str) for text in overrides):
         raise TypeError(f"overrides must be a sequence of 'key.path=value' strings; got {overrides!r}")
     return tuple(overrides)
+
+
+def _override_layer(overrides, origin):
+    """Return one layer of overrides as ``((text, origin, is_place), ...)``.
+
+    ``origin`` is a str naming the source of every override (errors read
+    ``origin:key.path:``) or one full place per override (errors read ``place:``).
+    """
+    texts = _check_override_texts(overrides)
+    if isinstance(origin, str):
+        return tuple((text, origin, False) for text in texts)
+    places = tuple(origin) if isinstance(origin, (list, tuple)) else None
+    if places is None or len(places) != len(texts) or not all(isinstance(place, str) for place in places):
+        raise TypeError(f"origin must be a string or a sequence of one string per override ({len(texts)}); "
+                        f"got {origin!r}")
+    return tuple((text, place, True) for text, place in zip(texts, places))
 
 
 def _parse_plain(raw, kind):
@@ -255,13 +277,19 @@ def _normalise(param, raw, base_dir):
 
 
 def _merge_layers(layers):
-    """Merge ``[(origin, {key: raw})]``, later layers winning; return ``({key: raw}, {key: origin})``.
+    """Merge ``[({key: place}, {key: raw})]``, later layers winning.
 
     A layer that gives the first key of one alternative drops the other
     alternatives' keys given by the layers below it.
+
+    Returns
+    -------
+    given, places, ranks : dict
+        Each given key's raw value, the place it was given (``file:key.path``
+        or the like) and the index of the layer that gave it.
     """
-    given, origins = {}, {}
-    for origin, layer in layers:
+    given, places, ranks = {}, {}, {}
+    for rank, (where, layer) in enumerate(layers):
         for *options, _ in _ALTERNATIVES:
             chosen = [option for option in options if option[0] in layer]
             for option in options:
@@ -269,14 +297,15 @@ def _merge_layers(layers):
                     for key in option:
                         given.pop(key, None)
         given.update(layer)
-        origins.update(dict.fromkeys(layer, origin))
+        places.update(where)
+        ranks.update(dict.fromkeys(layer, rank))
     for *options, why in _ALTERNATIVES:
         present = [next(key for key in option if key in given) for option in options
                    if any(key in given for key in option)]
         if len(present) > 1:
             first, second = present
-            raise ConfigError(f"{origins[first]}:{first}: cannot be combined with {second}; {why}")
-    return given, {key: origins[key] for key in given}
+            raise ConfigError(f"{places[first]}: cannot be combined with {second}; {why}")
+    return given, {key: places[key] for key in given}, {key: ranks[key] for key in given}
 
 
 def _unused_alternatives(given):
@@ -290,8 +319,17 @@ def _unused_alternatives(given):
     return unused
 
 
-def _check_rules(values, source):
-    """Raise `ConfigError` for the first cross-key rule the resolved ``values`` break."""
+def _check_rules(values, source, places, ranks):
+    """Raise `ConfigError` for the first cross-key rule the resolved ``values`` break.
+
+    A message names the place where the offending key was given (``places``)
+    or, for a default, the config file; of two keys given in different
+    layers (``ranks``), the one given last is blamed.
+    """
+
+    def where(key):
+        return places.get(key, f"{source}:{key}")
+
     if values["snapshot.path"] is None:
         raise ConfigError(f"{source}:snapshot.path: expected the HDF5 snapshot file, e.g. path = 'galaxy.h5' "
                           "in [snapshot]; got nothing (this key is required)")
@@ -301,7 +339,7 @@ def _check_rules(values, source):
             for name in SNAPSHOT_FIELDS:
                 key = f"snapshot.fields.{name}.{factor}_power"
                 if values[key] != 0.0:
-                    raise ConfigError(f"{source}:{key}: is {values[key]:g}, so {number} or {attribute} "
+                    raise ConfigError(f"{where(key)}: is {values[key]:g}, so {number} or {attribute} "
                                       "must be given; got neither")
     if values["observer.distance"] is None and values["observer.redshift"] is None:
         raise ConfigError(f"{source}:observer: expected observer.distance (e.g. '8.5 Mpc') or "
@@ -311,37 +349,43 @@ def _check_rules(values, source):
                                     ("geometry.orientation", "geometry.rotation_matrix",
                                      "[[1, 0, 0], [0, 1, 0], [0, 0, 1]]")):
         if values[switch] == "explicit" and values[needed] is None:
-            raise ConfigError(f"{source}:{needed}: required when {switch} = 'explicit', e.g. "
+            raise ConfigError(f"{where(needed)}: required when {switch} = 'explicit', e.g. "
                               f"{needed.rsplit('.', 1)[-1]} = {example}; got nothing")
     if values["noise.mode"] == "rms" and values["noise.rms"] is None:
-        raise ConfigError(f"{source}:noise.rms: required when noise.mode = 'rms', e.g. rms = '0.4 mJy/beam'; "
+        raise ConfigError(f"{where('noise.rms')}: required when noise.mode = 'rms', e.g. rms = '0.4 mJy/beam'; "
                           "got nothing")
-    if values["beam.minor"] > values["beam.major"]:
-        raise ConfigError(f"{source}:beam.minor: expected at most beam.major ({values['beam.major']}); "
-                          f"got {values['beam.minor']}")
+    major, minor = values["beam.major"], values["beam.minor"]
+    if minor > major:
+        if ranks.get("beam.major", -1) > ranks.get("beam.minor", -1):
+            raise ConfigError(f"{where('beam.major')}: expected at least beam.minor ({minor}); got {major}")
+        raise ConfigError(f"{where('beam.minor')}: expected at most beam.major ({major}); got {minor}")
 
 
 def _build(file_values, *, source, base_dir, override_layers):
-    layers = [(source, file_values)]
-    for texts in override_layers:
-        layers.append((_OVERRIDE_ORIGIN, dict(_parse_override(text) for text in texts)))
-    given, origins = _merge_layers(layers)
+    layers = [({key: f"{source}:{key}" for key in file_values}, file_values)]
+    for overrides in override_layers:
+        where, layer = {}, {}
+        for text, origin, is_place in overrides:
+            key, layer[key] = _parse_override(text, origin, is_place)
+            where[key] = origin if is_place else f"{origin}:{key}"
+        layers.append((where, layer))
+    given, places, ranks = _merge_layers(layers)
     values = {}
     for key, raw in given.items():
         try:
             values[key] = _normalise(PARAMS_BY_KEY[key], raw, base_dir)
         except Problem as problem:
-            raise ConfigError(f"{origins[key]}:{key}: {problem}") from problem
+            raise ConfigError(f"{places[key]}: {problem}") from problem
     unused = _unused_alternatives(given)
     for param in PARAMS:
         if param.key not in values:
             skip = param.default is None or param.key in unused
             values[param.key] = None if skip else _normalise(param, param.default, base_dir)
     values = {param.key: values[param.key] for param in PARAMS}
-    _check_rules(values, source)
+    _check_rules(values, source, places, ranks)
     return RunConfig(source=source, base_dir=base_dir, _values=types.MappingProxyType(values),
                      _user_keys=frozenset(given), _file_values=types.MappingProxyType(file_values),
-                     _override_layers=override_layers)
+                     _override_layers=override_layers, _places=types.MappingProxyType(places))
 
 
 def load_config(path, *, overrides=()) -> "RunConfig":
@@ -380,7 +424,7 @@ def load_config(path, *, overrides=()) -> "RunConfig":
     (64, <Quantity 40. arcsec>)
     """
     source = os.fspath(path)
-    override_layers = (_check_override_texts(overrides),)
+    override_layers = (_override_layer(overrides, _OVERRIDE_ORIGIN),)
     table = read_toml_file(path, what="config file")
     return _build(_flatten(table, source), source=source, base_dir=Path(path).resolve().parent,
                   override_layers=override_layers)
@@ -445,7 +489,7 @@ def config_from_dict(mapping, *, source="<dict>", base_dir=None, overrides=()) -
     """
     if not isinstance(mapping, Mapping):
         raise TypeError(f"mapping must be a mapping of config sections; got {type(mapping).__name__}")
-    override_layers = (_check_override_texts(overrides),)
+    override_layers = (_override_layer(overrides, _OVERRIDE_ORIGIN),)
     folder = Path.cwd() if base_dir is None else Path(base_dir).resolve()
     return _build(_flatten(mapping, source), source=source, base_dir=folder, override_layers=override_layers)
 
@@ -531,12 +575,31 @@ class RunConfig:
     _user_keys: frozenset = dataclasses.field(repr=False)
     _file_values: Mapping = dataclasses.field(repr=False)
     _override_layers: tuple = dataclasses.field(repr=False)
+    _places: Mapping = dataclasses.field(repr=False)
 
     def __getitem__(self, key: str):
         """Return the resolved value of ``key`` (a copy, for arrays)."""
         _check_key(key)
         value = self._values[key]
         return value.copy() if isinstance(value, np.ndarray) else value
+
+    def where(self, key: str) -> str:
+        """Return where ``key``'s value was given, the way an error about it starts.
+
+        ``file:key.path`` for a value from the config file (or a default),
+        ``--set:key.path`` for an override, or the place a `replace` call
+        named as its ``origin``.
+
+        Examples
+        --------
+        >>> config = config_from_dict({"snapshot": {"path": "/data/galaxy.h5"},
+        ...                            "observer": {"distance": "8.5 Mpc"}}, source="run.toml")
+        >>> swept = config.replace(["grid.n_x=64"], origin=["batch.toml:sweep.keys.grid.n_x[0]"])
+        >>> swept.where("grid.n_x"), swept.where("grid.n_y"), swept.replace(["grid.n_y=8"]).where("grid.n_y")
+        ('batch.toml:sweep.keys.grid.n_x[0]', 'run.toml:grid.n_y', '--set:grid.n_y')
+        """
+        _check_key(key)
+        return self._places.get(key, f"{self.source}:{key}")
 
     def is_set(self, key: str) -> bool:
         """Return True if the user gave ``key`` (in the file or an override), False for a default."""
@@ -586,19 +649,41 @@ class RunConfig:
         """SHA-256 (hex) of `to_toml`: equal for configs that resolve to the same values."""
         return hashlib.sha256(self.to_toml().encode("utf-8")).hexdigest()
 
-    def replace(self, overrides) -> "RunConfig":
+    def replace(self, overrides, *, origin=_OVERRIDE_ORIGIN) -> "RunConfig":
         """Return a new config with ``overrides`` (``"key.path=value"`` strings) applied on top.
 
         The new overrides form a layer above everything given so far.
+
+        Parameters
+        ----------
+        overrides : sequence of str
+            ``"key.path=value"`` strings, read as in `load_config`.
+        origin : str or sequence of str
+            Where the overrides come from, for error messages and `where`.  A
+            string names their source as a file name would: a bad value reads
+            ``<origin>:<key.path>: expected ...; got ...`` (default ``"--set"``,
+            as on the command line).  A sequence gives each override its own
+            place, which then starts the message whole, e.g.
+            ``"batch.toml:sweep.keys.grid.n_x[1]"``.
 
         Raises
         ------
         ConfigError
             If an override names an unknown key or breaks a rule.
         TypeError
-            If ``overrides`` is a single string rather than a sequence of them.
+            If ``overrides`` is a single string rather than a sequence of them,
+            or ``origin`` is neither a string nor one string per override.
+
+        Examples
+        --------
+        >>> config = config_from_dict({"snapshot": {"path": "/data/galaxy.h5"},
+        ...                            "observer": {"distance": "8.5 Mpc"}})
+        >>> config.replace(["grid.n_x=0"], origin=["batch.toml:sweep.keys.grid.n_x[1]"])
+        Traceback (most recent call last):
+        ...
+        pipeline.errors.ConfigError: batch.toml:sweep.keys.grid.n_x[1]: expected a value of at least 1; got 0
         """
-        layers = (*self._override_layers, _check_override_texts(overrides))
+        layers = (*self._override_layers, _override_layer(overrides, origin))
         return _build(dict(self._file_values), source=self.source, base_dir=self.base_dir,
                       override_layers=layers)
 

@@ -50,7 +50,20 @@ def test_a_failed_job_exits_one_and_is_named(capsys, write_batch):
     assert "cubewright: 1 job(s) failed: tiny" in err and "tiny: EmptyFieldError" in err
 
 
+def test_a_job_failing_on_a_swept_value_names_the_batch_key_in_manifest_and_summary(capsys, write_batch, tmp_path):
+    import json
+
+    path = write_batch("name = 'tight'\n[sweep.keys.run]\nmemory_budget = ['1 MiB']\n")
+    code, out, err = run_cli(capsys, "batch", path, "--workers", "1")
+    assert code == 1 and "1 failed" in out
+    reason = f"MemoryBudgetError: {path}:sweep.keys.run.memory_budget[0]: even one channel of the 17 x 24 x 37 cube"
+    record = json.loads((tmp_path / "batch_out" / "manifest.json").read_text())["jobs"]["tight"]
+    assert record["status"] == "failed" and record["error"].startswith(reason), record["error"]
+    assert f"  tight: {record['error']}" in err.splitlines() and "--set" not in err
+
+
 @pytest.mark.parametrize("body, fragments", [
+    ("[sweep.keys.grid]\nn_x = [16, 0]\n", ["batch.toml:sweep.keys.grid.n_x[1]: expected a value of at least 1; got 0"]),
     ("name = 'same'\n" + VIEWS, ["batch.toml:batch.name: expected a distinct name for every job"]),
     ("name = '../{view}'\n" + VIEWS, ["batch.toml:batch.name:", "leads outside it"]),
     ("[sweep]\nsnapshots = ['nothing_*.h5']\n", ["batch.toml:sweep.snapshots[0]:", "matches no file"]),
@@ -61,6 +74,7 @@ def test_bad_batch_files_exit_two_with_one_line(capsys, write_batch, tmp_path, b
     line = one_error_line(err)
     for fragment in fragments:
         assert fragment in line, line
+    assert "--set" not in line
     assert not (tmp_path / "batch_out").exists()
 
 

@@ -87,12 +87,15 @@ def test_slabs_on_two_workers_equal_slabs_in_process(slab_batch, tmp_path):
 
 
 def test_a_budget_too_small_for_one_channel_fails_the_job_with_the_reason(write_batch):
-    batch = load_batch(write_batch('[sweep.keys.run]\nmemory_budget = ["1 MiB"]\n'))
+    path = write_batch('[sweep.keys.run]\nmemory_budget = ["1 MiB"]\n')
+    batch = load_batch(path)
     (record,) = run_batch(batch).records
     assert record["status"] == "failed"
-    assert "MemoryBudgetError" in record["error"] and "even one channel" in record["error"]
+    # The budget came from the batch file, so the message names the batch key that carried it.
+    reason = f"{path}:sweep.keys.run.memory_budget[0]: even one channel of the 17 x 24 x 37 cube needs about"
+    assert record["error"].startswith(f"MemoryBudgetError: {reason}"), record["error"]
     (estimate,) = estimate_jobs(batch)
-    assert "even one channel" in estimate.error
+    assert reason in estimate.error
 
 
 def test_a_slab_job_whose_gas_misses_the_band_fails_and_leaves_no_partial_file(slab_batch):

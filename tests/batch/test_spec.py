@@ -82,11 +82,20 @@ def test_snapshot_glob_expands_sorted_and_groups_jobs_by_snapshot(write_batch, m
     ("[sweep.views]\nrandom = 4\nseed = 1\npairs = [['1 deg', '2 deg']]\n", ["sweep.views: expected exactly one",
                                                                             "pairs and random"]),
     ("[sweep.views]\ninclinations = ['200 deg']\nposition_angles = ['0 deg']\n",
-     ["batch.toml:sweep.views: job 0 has a bad run config", "geometry.inclination", "at most 180"]),
+     ["batch.toml:sweep.views.inclinations[0]: expected a value of at most 180 deg; got '200.0 deg'"]),
     ("[sweep.keys.grid]\nn_x = 64\n", ["batch.toml:sweep.keys.grid.n_x: expected a list"]),
     ("[sweep.keys.grid]\nn_xx = [64]\n", ["sweep.keys.grid.n_xx: unknown run config key", "'grid.n_x'"]),
-    ("[sweep.keys.grid]\nn_x = [64, 'many']\n", ["sweep.keys.grid.n_x: job 1 has a bad run config",
-                                                  "expected an integer"]),
+    ("[sweep.keys.grid]\nn_x = [64, 'many']\n", ["batch.toml:sweep.keys.grid.n_x[1]: expected an integer, e.g. 64; "
+                                                  "got 'many'"]),
+    ("[sweep.instruments.a.grid]\nn_x = -1\n[sweep.keys.beam]\nminor = ['30 arcsec']\n",
+     ["batch.toml:sweep.instruments.a.grid.n_x: expected a value of at least 1; got -1"]),
+    ("[sweep.instruments.narrow.beam]\nmajor = '20 arcsec'\n",
+     ["batch.toml:sweep.instruments.narrow.beam.major: expected at least beam.minor (36.0 arcsec); got 20.0 arcsec"]),
+    ("[sweep]\nredshifts = [0.01]\n[sweep.keys.observer]\nsystemic_velocity = ['600 km/s']\n",
+     ["batch.toml:sweep.keys.observer.systemic_velocity[0]: cannot be combined with observer.redshift"]),
+    ("[sweep.views]\npairs = [['30 deg', '10 deg'], ['190 deg', '0 deg']]\n",
+     ["batch.toml:sweep.views.pairs[1][0]: expected a value of at most 180 deg; got '190.0 deg'"]),
+    ("[sweep]\ndistances = ['-2 Mpc']\n", ["batch.toml:sweep.distances[0]: expected a value greater than 0"]),
     ("[sweep.instruments.wide.output]\nname = 'x'\n", ["sweep.instruments.wide.output.name: expected a run key "
                                                        "other than output.*"]),
     ("[sweep]\nredshifts = [0.1]\ndistances = ['1 Mpc']\n", ["sweep.redshifts: expected distances or redshifts"]),
@@ -117,6 +126,7 @@ def test_bad_batch_keys_are_refused_with_file_key_and_what_was_got(write_batch, 
         load_batch(write_batch(body))
     for fragment in fragments:
         assert fragment in str(info.value), str(info.value)
+    assert "--set" not in str(info.value)  # a swept value is named by its batch key, not as a command-line override
 
 
 def test_a_glob_matching_nothing_is_refused(write_batch):

@@ -592,6 +592,65 @@ def test_replace_returns_a_new_config_and_leaves_the_old_one():
     assert changed.source == config.source and changed.base_dir == config.base_dir
 
 
+# Where a replaced value came from, one row per form of origin: the message starts with that place.
+PLACE = "batch.toml:sweep.keys.grid.n_x[1]"
+
+
+@pytest.mark.parametrize("origin, message", [
+    ({}, "--set:grid.n_x: expected a value of at least 1; got 0"),
+    ({"origin": "sweep.toml"}, "sweep.toml:grid.n_x: expected a value of at least 1; got 0"),
+    ({"origin": ["b.toml:sweep.keys.grid.n_y[0]", PLACE]}, PLACE + ": expected a value of at least 1; got 0"),
+])
+def test_replace_names_the_origin_it_is_given_in_its_errors(origin, message):
+    overrides = ["grid.n_y=8", "grid.n_x=0"] if isinstance(origin.get("origin"), list) else ["grid.n_x=0"]
+    with pytest.raises(ConfigError, match="^" + re.escape(message) + "$"):
+        make().replace(overrides, **origin)
+
+
+@pytest.mark.parametrize("overrides, message", [
+    (["grid.n_x"], "expected 'key.path=value', e.g. 'grid.n_x=64'; got 'grid.n_x'"),
+    (["gird.n_x=64"], "unknown key 'gird.n_x'; did you mean 'grid.n_x'?"),
+    (["qqqq.zzzz=1"], "unknown key 'qqqq.zzzz'; the valid sections are: snapshot, geometry"),
+    (["grid=64"], "'grid' is a section, not a key; give a key, e.g. 'grid.n_x=...'"),
+    (["grid.pixel_scale=12"], "expected an angle, e.g. '10 arcsec' or '60 deg'; got 12, a bare number"),
+    (["snapshot.fields.mass.h_power=-1"], "is -1, so snapshot.little_h or snapshot.little_h_attribute must be "
+                                          "given; got neither"),
+    (["observer.distance=9 Mpc", "observer.redshift=0.002"], "cannot be combined with observer.redshift"),
+])
+def test_replace_with_one_place_per_override_starts_every_refusal_with_that_place(overrides, message):
+    places = [PLACE, "batch.toml:sweep.redshifts[0]"][:len(overrides)]
+    with pytest.raises(ConfigError, match="^" + re.escape(f"{PLACE}: {message}")):
+        make().replace(overrides, origin=places)
+
+
+@pytest.mark.parametrize("replaced, message", [
+    ("beam.major=20 arcsec", "batch.toml:k: expected at least beam.minor (36.0 arcsec); got 20.0 arcsec"),
+    ("beam.minor=50 arcsec", "batch.toml:k: expected at most beam.major (45.0 arcsec); got 50.0 arcsec"),
+])
+def test_a_cross_key_rule_blames_the_key_given_last(replaced, message):
+    config = make(beam={"major": "45 arcsec", "minor": "36 arcsec"})
+    with pytest.raises(ConfigError, match="^" + re.escape(message) + "$"):
+        config.replace([replaced], origin=["batch.toml:k"])
+
+
+def test_where_tells_the_file_an_override_and_a_named_place_apart():
+    config = make(grid={"n_x": 64}).replace(["grid.n_y=32"]).replace(["observer.redshift=0.01", "grid.n_chan=5"],
+                                                                     origin=["b.toml:z[0]", "b.toml:c[0]"])
+    assert [config.where(key) for key in ("grid.n_x", "grid.n_y", "grid.n_chan", "observer.redshift")] == \
+        ["galaxy.toml:grid.n_x", "--set:grid.n_y", "b.toml:c[0]", "b.toml:z[0]"]
+    # A default, and an alternative a later layer dropped, read as the config file's.
+    assert config.where("beam.major") == "galaxy.toml:beam.major"
+    assert config.where("observer.distance") == "galaxy.toml:observer.distance"
+    with pytest.raises(KeyError, match=r"unknown config key 'grid\.nx'"):
+        config.where("grid.nx")
+
+
+@pytest.mark.parametrize("origin", [3, ["only one"], ("a", 2), {"grid.n_x": "a", "grid.n_y": "b"}])
+def test_an_origin_must_be_a_string_or_one_string_per_override(origin):
+    with pytest.raises(TypeError, match=r"origin must be a string or a sequence of one string per override \(2\)"):
+        make().replace(["grid.n_x=8", "grid.n_y=8"], origin=origin)
+
+
 def test_load_config_takes_overrides(tmp_path):
     config = load_config(write(tmp_path, MINIMAL_TOML), overrides=["grid.n_y=24"])
     assert config["grid.n_y"] == 24
