@@ -6,7 +6,7 @@ from astropy.wcs.utils import proj_plane_pixel_area
 
 from ._spectral import channel_frequencies, channel_radio_velocities
 
-__all__ = ["moment0", "global_profile", "integrated_flux", "line_width_w50"]
+__all__ = ["moment0", "moment0_from_chunks", "global_profile", "integrated_flux", "line_width_w50"]
 
 
 def _beam_per_pixel(cube) -> float:
@@ -30,11 +30,43 @@ def moment0(cube) -> u.Quantity:
     `~astropy.units.Quantity`, shape (n_y, n_x)
         In ``cube.unit`` × km/s (e.g. Jy/beam km/s).
     """
-    widths = np.abs(np.gradient(channel_radio_velocities(cube.wcs).to_value(u.km / u.s)))
-    total = np.zeros(cube.data.shape[1:])
-    for width, plane in zip(widths, cube.data):   # channel by channel: no float64 copy of the cube
-        total += width * np.asarray(plane, dtype=np.float64)
-    return total * cube.unit * (u.km / u.s)
+    return moment0_from_chunks([cube.data], cube.wcs, cube.unit)
+
+
+def moment0_from_chunks(chunks, wcs, unit) -> u.Quantity:
+    """Return the moment-0 map of a cube that comes a few channels at a time (e.g. read from a file).
+
+    Parameters
+    ----------
+    chunks : iterable of numpy.ndarray, each of shape (n, n_y, n_x)
+        Consecutive channel ranges that together hold every channel of ``wcs``, in order.
+    wcs : `~astropy.wcs.WCS`
+        Three-axis WCS of the whole cube.
+    unit : `~astropy.units.UnitBase`
+        Unit of the values (Jy/beam or K).
+
+    Returns
+    -------
+    `~astropy.units.Quantity`, shape (n_y, n_x)
+        The map `moment0` gives for the whole cube (the same sum, in the same order).
+
+    Raises
+    ------
+    ValueError
+        If the chunks hold more or fewer channels than ``wcs``.
+    """
+    widths = np.abs(np.gradient(channel_radio_velocities(wcs).to_value(u.km / u.s)))
+    total, n_done = None, 0
+    for chunk in chunks:
+        for plane in chunk:   # channel by channel: no float64 copy of the chunk
+            if total is None:
+                total = np.zeros(np.shape(plane))
+            if n_done < widths.size:
+                total += widths[n_done] * np.asarray(plane, dtype=np.float64)
+            n_done += 1
+    if n_done != widths.size:
+        raise ValueError(f"the chunks must hold the {widths.size} channels of 'wcs'; got {n_done}")
+    return total * unit * (u.km / u.s)
 
 
 def global_profile(cube) -> tuple[u.Quantity, u.Quantity]:

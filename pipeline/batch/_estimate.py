@@ -62,7 +62,7 @@ def estimate_jobs(batch) -> list:
                     peak = plan.peak_memory
                 except MemoryBudgetError:
                     plan, ranges = plan_slabs(config, snapshot)
-                    n_slabs, maps = len(ranges), False
+                    n_slabs = len(ranges)
                     largest = max(stop - first for first, stop in ranges)
                     peak = plan_run(config.replace([f"grid.n_chan={largest}", UNBOUNDED_BUDGET]),
                                     snapshot=snapshot).peak_memory

@@ -6,8 +6,9 @@ fewest channel slabs whose own estimated peak fits the budget.  The first step
 file; each slab (`render_slab`) is gridded, convolved, given the noise of its
 channels (drawn per absolute channel, so the slabs add up to the whole cube)
 and written through a memory map; `finish_slab_job` sets the checksums,
-renames the file and joins the slabs' measurements.  Moment maps and the
-preview are not made for slab jobs: they would need the whole cube in memory.
+renames the file, joins the slabs' measurements and writes the same moment-0
+and column-density maps and preview as a whole-cube job, the maps summed from
+the finished file read back a few channels at a time (never the whole cube).
 """
 
 import dataclasses
@@ -15,14 +16,17 @@ import time
 
 import astropy.units as u
 import numpy as np
+from astropy.io import fits
 
 from pipeline import __version__
+from pipeline.analysis import moment0_from_chunks, plot_preview
 from pipeline.chain import orient_galaxy, output_paths, plan_run, render_channels
 from pipeline.cube import Cube
+from pipeline.emission import column_density_from_brightness, column_density_from_flux
 from pipeline.errors import EmptyFieldError, MemoryBudgetError
-from pipeline.geometry import make_cube_wcs
+from pipeline.geometry import make_cube_wcs, make_image_wcs
 from pipeline.instrument import add_thermal_noise, cube_to_kelvin
-from pipeline.io import create_fits_cube, finalise_fits_cube, write_fits_slab
+from pipeline.io import atomic_output, create_fits_cube, finalise_fits_cube, write_fits_slab, write_image
 
 from ._catalogue import ChannelSums, measure_channels, noise_correlation
 from ._jobs import (channel_axes, describe_error, finish_measurements, job_record, output_record, peak_memory_mib,
@@ -34,6 +38,8 @@ __all__ = ["SlabWork", "SlabResult", "plan_slabs", "start_slab_job", "render_sla
 # Budget given to the planning of a slab job; the slabs themselves are sized to the real budget.
 UNBOUNDED_BUDGET = "run.memory_budget=1e9 GiB"
 _JY_PER_BEAM = u.Jy / u.beam
+# Values read back per chunk when the maps are made from the finished file (16 MiB of float32).
+_VALUES_PER_CHUNK = 1 << 22
 
 
 @dataclasses.dataclass(frozen=True)
@@ -48,7 +54,11 @@ class SlabWork:
     ranges : tuple of (int, int)
         ``(first, stop)`` channels of each slab, in order.
     orientation : `~pipeline.chain.Orientation`
+    grid : `~pipeline.geometry.GridSpec`
+    beam : `~pipeline.instrument.BeamSpec`
     luminosity_distance : `~astropy.units.Quantity` ['length']
+    redshift : float
+        Cosmological redshift (surface-brightness dimming of the column density).
     rms_jy : float or None
     started : float
         ``time.time()`` when the job started.
@@ -62,7 +72,10 @@ class SlabWork:
     final: object
     ranges: tuple
     orientation: object
+    grid: object
+    beam: object
     luminosity_distance: u.Quantity
+    redshift: float
     rms_jy: float | None
     started: float
     peak_memory: float
@@ -139,8 +152,9 @@ def start_slab_job(job, context, cache, *, started):
                                beam=plan.beam, provenance=_provenance(plan, orientation, config),
                                config_text=config.to_toml(), overwrite=True)
     rms_jy = None if plan.noise_rms is None else float(plan.noise_rms.to_value(_JY_PER_BEAM))
-    return SlabWork(job=job, partial=partial, final=final, ranges=ranges, orientation=orientation,
-                    luminosity_distance=plan.distances.luminosity_distance, rms_jy=rms_jy, started=with_time,
+    return SlabWork(job=job, partial=partial, final=final, ranges=ranges, orientation=orientation, grid=plan.grid,
+                    beam=plan.beam, luminosity_distance=plan.distances.luminosity_distance,
+                    redshift=plan.distances.redshift, rms_jy=rms_jy, started=with_time,
                     peak_memory=peak_memory_mib(), warnings=())
 
 
@@ -172,20 +186,62 @@ def render_slab(work, channels, context, cache) -> SlabResult:
                       peak_memory=peak_memory_mib(), warnings=tuple(str(item.message) for item in caught))
 
 
+def _cube_chunks(path, n_chan, step):
+    """Yield the data of a FITS cube ``step`` channels at a time, each chunk read from the file on its own."""
+    with fits.open(path, memmap=False) as opened:
+        for first in range(0, n_chan, step):
+            yield opened[0].section[first:first + step]
+
+
+def _write_maps(work, sums, config):
+    """Write the moment-0 and column-density maps and the preview a whole-cube run writes; return their paths.
+
+    The maps are summed from the finished FITS file, read back a few channels
+    at a time; the preview's line profile is the slabs' global profile.
+    """
+    paths = {kind: path for kind, path in output_paths(config).items() if kind != "cube"}
+    if not paths:
+        return {}
+    unit = u.K if config["emission.unit"] == "K" else _JY_PER_BEAM
+    grid = work.grid
+    # At most 16 MiB and never more channels than the smallest slab, which the memory budget admits.
+    step = max(1, min(_VALUES_PER_CHUNK // (grid.n_x * grid.n_y), *(stop - first for first, stop in work.ranges)))
+    chunks = _cube_chunks(work.final, grid.n_chan, step)
+    map0 = moment0_from_chunks(chunks, make_cube_wcs(grid), unit)
+    if unit == u.K:
+        column = column_density_from_brightness(map0).to(u.cm**-2)
+    else:
+        column = column_density_from_flux(map0, work.beam, redshift=work.redshift).to(u.cm**-2)
+    image_wcs, text = make_image_wcs(grid), config.to_toml()
+    if "moment0" in paths:
+        write_image(map0.value, image_wcs, map0.unit, paths["moment0"], beam=work.beam, overwrite=True,
+                    config_text=text)
+        write_image(column.value, image_wcs, column.unit, paths["column_density"], beam=work.beam,
+                    overwrite=True, config_text=text)
+    if "preview" in paths:
+        with atomic_output(paths["preview"], overwrite=True) as partial:
+            plot_preview(column, image_wcs, sums.velocity_kms * u.km / u.s, sums.profile_jy * u.Jy, partial,
+                         beam=work.beam, title=f"{config['output.name']}: HI column density and line profile")
+    return paths
+
+
 def finish_slab_job(work, results, context) -> dict:
-    """Finalise the FITS file of a slab job and return its manifest record."""
+    """Finalise the FITS file of a slab job, write its maps and preview, and return its manifest record."""
+    reset_peak_memory()
     if sum(result.deposited_weight for result in results) <= 0:
         work.partial.unlink(missing_ok=True)
         raise EmptyFieldError(f"{work.job.name}: no selected gas falls inside the cube's field of view and band; "
                               "check observer.ra/dec, grid.n_chan and grid.channel_width")
     finalise_fits_cube(work.partial, work.final, overwrite=True)
     sums = ChannelSums.combine(result.sums for result in results)
+    maps = _write_maps(work, sums, context.config_for(work.job))
     measurements = finish_measurements(sums, luminosity_distance=work.luminosity_distance, rms_jy=work.rms_jy,
                                        context=context)
     measurements["n_slabs"] = len(results)
-    record = job_record(work.job, "done", outputs=output_record({"cube": work.final}, context.output_dir),
-                        wall_time=time.time() - work.started,
-                        peak_memory=max([work.peak_memory, *(result.peak_memory for result in results)]),
+    outputs = output_record({"cube": work.final, **maps}, context.output_dir)
+    record = job_record(work.job, "done", outputs=outputs, wall_time=time.time() - work.started,
+                        peak_memory=max([work.peak_memory, peak_memory_mib(),
+                                         *(result.peak_memory for result in results)]),
                         measurements=measurements)
     record["warnings"] = [*work.warnings, *(text for result in results for text in result.warnings)]
     return record

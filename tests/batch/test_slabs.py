@@ -8,6 +8,7 @@ import pytest
 from astropy.io import fits
 
 from pipeline.batch import estimate_jobs, load_batch, run_batch
+from pipeline.batch._jobs import file_sha256
 from pipeline.chain import plan_run, run
 from pipeline.config import load_config
 from pipeline.errors import ParticlesOutsideFieldWarning
@@ -39,14 +40,34 @@ def _whole_cube(batch, tmp_path):
     return fits.getdata(result.paths["cube"]), result
 
 
-def test_slab_job_assembles_the_single_process_cube(slab_batch, tmp_path, fitsverify):
+@pytest.mark.parametrize("unit", ["Jy/beam", "K"])
+def test_slab_job_assembles_the_single_process_cube(slab_batch, tmp_path, fitsverify, monkeypatch, unit):
+    from pipeline.batch import _slabs
+
+    if unit == "K":  # the cube, and so the moment-0 map, in K; the column density from the brightness
+        slab_batch.write_text(slab_batch.read_text() + '[sweep.keys.emission]\nunit = ["K"]\n')
     batch = load_batch(slab_batch)
     (estimate,) = estimate_jobs(batch)
     assert estimate.n_slabs == 3 and estimate.error is None
+    assert u.isclose(estimate.disk, (4 * 17 * 24 * 37 + 8 * 24 * 37) * u.byte)  # float32 cube and two float32 maps
+    read_back = []
+
+    def spy(path, n_chan, step):
+        for chunk in chunks(path, n_chan, step):
+            read_back.append(chunk.shape[0])
+            yield chunk
+
+    chunks = _slabs._cube_chunks
+    monkeypatch.setattr(_slabs, "_cube_chunks", spy)
     result = run_batch(batch)
     (record,) = result.records
     assert record["status"] == "done" and record["measurements"]["n_slabs"] == 3
-    assert list(record["outputs"]) == ["cube"]
+    assert set(record["outputs"]) == {"cube", "moment0", "column_density", "preview"}
+    for output in record["outputs"].values():
+        assert file_sha256(batch.output_dir / output["path"]) == output["sha256"]
+    # The maps were summed from the file at most a slab of channels at a time (the smallest of the 3 slabs
+    # of 17 channels holds 5), never the whole cube at once.
+    assert sum(read_back) == 17 and max(read_back) <= 5 and len(read_back) > 1
     slabbed_path = batch.output_dir / record["outputs"]["cube"]["path"]
     with warnings.catch_warnings():
         warnings.simplefilter("error")
@@ -66,6 +87,18 @@ def test_slab_job_assembles_the_single_process_cube(slab_batch, tmp_path, fitsve
     assert record["measurements"]["peak_snr"] == pytest.approx(summary["peak_snr"], rel=1e-9)
     n_warnings, n_errors, report = fitsverify(slabbed_path)  # HEASARC fitsverify (check-values FW-10)
     assert (n_warnings, n_errors) == (0, 0), report
+    for kind in ("moment0", "column_density"):
+        with fits.open(batch.output_dir / record["outputs"][kind]["path"]) as slabbed_map, \
+                fits.open(whole_result.paths[kind]) as whole_map:
+            # The slab job sums its maps from the float32 values stored in its file; the whole-cube job from
+            # the cube it holds. The two cubes agree to float32 round-off (above), so the maps agree to that,
+            # relative to their peak, and carry the same header.
+            expected = whole_map[0].data
+            np.testing.assert_allclose(slabbed_map[0].data, expected, rtol=0, atol=1e-6 * np.abs(expected).max())
+            for keyword in ("BUNIT", "BMAJ", "BMIN", "BPA", "NAXIS1", "NAXIS2", "CTYPE1", "CRVAL1", "CDELT2"):
+                assert slabbed_map[0].header[keyword] == whole_map[0].header[keyword], keyword
+    preview = batch.output_dir / record["outputs"]["preview"]["path"]
+    assert preview.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification, section 5.2)
 
 
 @pytest.mark.dask
