@@ -11,13 +11,16 @@ line printed is one JSON object:
 ``overhead_fraction``
     (1-worker Dask wall time - in-process wall time) / 8 jobs, over the median
     run time of one job: what the scheduler adds to each job.
+``speedup_2processes_no_dask``
+    For diagnosis: the same 8 jobs as two plain processes side by side (one
+    snapshot each) against one process running both: the ceiling the machine
+    itself sets (shared memory bandwidth and caches), with no Dask at all.
 
 The snapshots are invented exponential discs (common practice for a benchmark, no source).
 """
 
 import argparse
 import json
-import logging
 import statistics
 import tempfile
 import time
@@ -27,7 +30,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from pipeline.batch import load_batch, run_batch
+from pipeline.batch import connect_client, load_batch, run_batch
 
 RUN_TOML = """
 [snapshot]
@@ -98,16 +101,41 @@ def _write_disc(path, n_particles, seed):
 
 
 def _dask_run(folder, name, n_workers):
-    from distributed import Client, LocalCluster
-
-    with LocalCluster(n_workers=n_workers, threads_per_worker=1, dashboard_address=":0",
-                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+    with connect_client(workers=n_workers) as client:
         warm = load_batch(folder / "warm.toml", output_dir=folder / f"warm_{name}")
         run_batch(warm, client=client, threads=1)
         batch = load_batch(folder / "batch.toml", output_dir=folder / name)
         started = time.perf_counter()
         result = run_batch(batch, client=client, threads=1)
         return time.perf_counter() - started, result
+
+
+def _in_process(folder, name, tag):
+    """Run a batch file in this process (one numba thread per job) into its own folder; return the wall time."""
+    warnings.simplefilter("ignore")
+    batch = load_batch(folder / f"{name}.toml", output_dir=folder / f"{name}_{tag}")
+    started = time.perf_counter()
+    run_batch(batch, threads=1)
+    return time.perf_counter() - started
+
+
+def _plain_processes(folder):
+    """Wall time of the two one-snapshot halves run by two processes side by side, and by one process."""
+    import concurrent.futures
+    import multiprocessing
+
+    for k in range(2):
+        text = BATCH_TOML.format(output=f"half_{k}").replace('["disc_0.h5", "disc_1.h5"]', f'["disc_{k}.h5"]')
+        (folder / f"half_{k}.toml").write_text(text)
+    with concurrent.futures.ProcessPoolExecutor(2, mp_context=multiprocessing.get_context("spawn")) as pool:
+        list(pool.map(_in_process, [folder] * 2, ["warm", "warm"], ["a", "b"]))   # compile and cache in both
+        started = time.perf_counter()
+        list(pool.map(_in_process, [folder] * 2, ["half_0", "half_1"], ["2", "2"]))
+        side_by_side = time.perf_counter() - started
+        started = time.perf_counter()
+        pool.submit(_in_process, folder, "batch", "1").result()
+        one = time.perf_counter() - started
+    return side_by_side, one
 
 
 def main():
@@ -130,16 +158,20 @@ def main():
         t_here = time.perf_counter() - started
         t_one, one = _dask_run(folder, "one_worker", 1)
         t_two, two = _dask_run(folder, "two_workers", 2)
+        t_side_by_side, t_one_process = _plain_processes(folder)
     job_time = statistics.median(record["wall_time_s"] for record in here.records)
     n_jobs = len(here.records)
     reads = [count for per_worker in two.snapshot_reads.values() for count in per_worker.values()]
     print(f"in process: {t_here:.2f} s for {n_jobs} jobs (median job {job_time:.2f} s)")
     print(f"1 worker:   {t_one:.2f} s;  2 workers: {t_two:.2f} s")
     print(f"snapshot reads per (worker, snapshot) with 2 workers: {reads}")
+    print(f"no Dask, for diagnosis: 1 process {t_one_process:.2f} s, 2 processes side by side {t_side_by_side:.2f} s "
+          f"({t_one_process / t_side_by_side:.2f}x)")
     failed = here.failed + one.failed + two.failed
     print(json.dumps({"speedup_2workers": round(t_one / t_two, 3),
                       "snapshot_reads_per_worker": max(reads),
                       "overhead_fraction": round((t_one - t_here) / n_jobs / job_time, 4),
+                      "speedup_2processes_no_dask": round(t_one_process / t_side_by_side, 3),
                       "median_job_seconds": round(job_time, 3), "n_jobs": n_jobs, "failed": list(failed)}))
 
 
