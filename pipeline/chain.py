@@ -99,6 +99,8 @@ class RunResult:
     summary : dict
         Numbers a user checks first: HI mass selected and recovered, noise rms,
         peak signal-to-noise, W50, fraction of the gas outside the field.
+    model : `~pipeline.cube.Cube` or None
+        The noise-free cube in Jy/beam, when ``run(..., keep_model=True)``.
     """
 
     cube: Cube
@@ -106,6 +108,7 @@ class RunResult:
     column_density: u.Quantity
     paths: dict
     summary: dict
+    model: Cube | None = None
 
 
 def _field_sources(config):
@@ -319,6 +322,8 @@ class RenderedChannels:
         ∫S dν of the selected gas and of the part that fell in these channels (Jy Hz).
     n_contributions : int
         Voxel contributions made by the deposit.
+    model : `~pipeline.cube.Cube` or None
+        The same channels without noise (Jy/beam), when asked for.
     """
 
     cube: Cube
@@ -328,6 +333,7 @@ class RenderedChannels:
     total_weight: float
     deposited_weight: float
     n_contributions: int
+    model: Cube | None = None
 
 
 def orient_galaxy(plan) -> Orientation:
@@ -363,7 +369,7 @@ def _slab_wcs(grid, first, stop):
     return sliced
 
 
-def render_channels(plan, orientation, *, channels=None, progress=None) -> RenderedChannels:
+def render_channels(plan, orientation, *, channels=None, progress=None, keep_model=False) -> RenderedChannels:
     """Grid, convolve and add noise to the channels ``channels`` of the planned cube.
 
     Parameters
@@ -376,6 +382,9 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
         rendered separately and stacked equal the whole cube, noise included.
     progress : callable, optional
         Called as ``progress(n_read, n_total)`` after each snapshot chunk.
+    keep_model : bool
+        Also return the noise-free cube (a float32 copy, made after the
+        accumulator is freed, so the peak memory does not grow).
 
     Returns
     -------
@@ -403,10 +412,18 @@ def render_channels(plan, orientation, *, channels=None, progress=None) -> Rende
         observed = convolve_with_beam(Cube(out, _slab_wcs(grid, first, stop), JY_PER_PIXEL), plan.beam,
                                       threads=config["run.threads"] or None, out=convolved)
     peak_model = float(observed.data.max())
+    model = None
+    if keep_model:
+        model_data = observed.data
+        if plan.noise_rms is not None:
+            model_data = allocate_accumulator(shape, in_memory_limit=in_memory_limit, directory=scratch,
+                                              dtype=np.float32)
+            np.copyto(model_data, observed.data)
+        model = dataclasses.replace(observed, data=model_data)
     if plan.noise_rms is not None:
         observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"], first_channel=first,
                                      threads=config["run.threads"] or None, in_place=True)
-    return RenderedChannels(cube=observed, peak_model=peak_model, **totals)
+    return RenderedChannels(cube=observed, peak_model=peak_model, model=model, **totals)
 
 
 def _deposit_chunks(plan, orientation, out, first, progress):
@@ -457,7 +474,8 @@ def _deposit_chunks(plan, orientation, out, first, progress):
                 n_contributions=contributions)
 
 
-def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, snapshot=None) -> RunResult:
+def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, snapshot=None,
+        keep_model=False) -> RunResult:
     """Make the synthetic observation a config describes.
 
     Parameters
@@ -476,6 +494,8 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, 
         particles in that chunk and in the whole snapshot.
     snapshot : `~pipeline.particles.Snapshot`, optional
         Passed to :func:`plan_run`.
+    keep_model : bool
+        Also return the noise-free cube (`RunResult.model`), e.g. to mask on it.
 
     Returns
     -------
@@ -496,7 +516,7 @@ def run(config, *, output_dir=None, overwrite=False, write=True, progress=None, 
     if plan.memory.memory_mapped:
         _check_scratch(plan, paths)
     orientation = orient_galaxy(plan)
-    rendered = render_channels(plan, orientation, progress=progress)
+    rendered = render_channels(plan, orientation, progress=progress, keep_model=keep_model)
     if rendered.deposited_weight <= 0:
         raise EmptyFieldError(f"{config.source}:grid: no selected gas falls inside the cube's field of view "
                               f"and band; check observer.ra/dec, grid.n_chan and grid.channel_width")
@@ -562,7 +582,8 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
         "velocity": velocity,
         "profile": profile,
     }
-    return RunResult(cube=observed, moment0=map0, column_density=column, paths=paths or {}, summary=summary)
+    return RunResult(cube=observed, moment0=map0, column_density=column, paths=paths or {}, summary=summary,
+                     model=rendered.model)
 
 
 def _whole_cube_mass_noise(plan):

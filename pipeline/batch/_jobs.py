@@ -24,7 +24,7 @@ from pipeline.chain import open_configured_snapshot, plan_run, run
 from pipeline.config import config_from_dict
 from pipeline.cube import Cube
 from pipeline.errors import MemoryBudgetError
-from pipeline.instrument import add_thermal_noise, cube_to_kelvin
+from pipeline.instrument import cube_to_kelvin
 from pipeline.particles import load_into_memory
 
 from ._catalogue import measure_channels, noise_correlation, summarise_sums
@@ -155,24 +155,27 @@ def pixels_per_beam(wcs, beam) -> float:
 
 
 def _in_jy_per_beam(cube):
-    """Return the data of an observed cube in Jy/beam (undoing the conversion to K channel by channel)."""
+    """Return the data of an observed cube in Jy/beam (undoing the conversion to K channel by channel).
+
+    A cube already in Jy/beam comes back as it is; otherwise as one float32
+    copy (the sums over it are taken in float64).
+    """
+    if cube.unit == _JY_PER_BEAM:
+        return cube.data
     if cube.unit.is_equivalent(_JY_PER_BEAM):
-        return np.asarray(cube.data, dtype=np.float64) * cube.unit.to(_JY_PER_BEAM)
+        return cube.data * np.float32(cube.unit.to(_JY_PER_BEAM))
     ones = Cube(np.ones((cube.data.shape[0], 1, 1)), cube.wcs, _JY_PER_BEAM, beam=cube.beam)
-    kelvin_per_jy = cube_to_kelvin(ones).data
-    return np.asarray(cube.data, dtype=np.float64) / kelvin_per_jy
+    kelvin_per_jy = cube_to_kelvin(ones).data.astype(np.float32)
+    return cube.data / kelvin_per_jy
 
 
 def _measure_result(result, plan, context):
-    """Catalogue numbers of a whole-cube run; the noise-free cube is the observed one less its noise."""
-    config, cube = plan.config, result.cube
+    """Catalogue numbers of a whole-cube run made with ``keep_model=True`` (the mask is cut on the model)."""
+    cube = result.cube
     observed = _in_jy_per_beam(cube)
     rms_jy = None if plan.noise_rms is None else float(plan.noise_rms.to_value(_JY_PER_BEAM))
-    model, correlation = observed, None
+    model, correlation = result.model.data, None
     if rms_jy is not None:
-        silent = Cube(np.zeros(observed.shape), cube.wcs, _JY_PER_BEAM, beam=plan.beam)
-        noise = add_thermal_noise(silent, rms=plan.noise_rms, seed=config["noise.seed"]).data
-        model = observed - noise
         correlation = noise_correlation(plan.beam, plan.grid.pixel_scale)
     velocity, width_kms, width_hz = channel_axes(cube.wcs)
     sums = measure_channels(observed, model, pixels_per_beam=pixels_per_beam(cube.wcs, plan.beam),
@@ -214,7 +217,7 @@ def run_job(job, context, cache):
             except MemoryBudgetError:
                 work = start_slab_job(job, context, cache, started=started)
                 return dataclasses.replace(work, warnings=tuple(str(item.message) for item in caught))
-            result = run(config, snapshot=snapshot, overwrite=True)
+            result = run(config, snapshot=snapshot, overwrite=True, keep_model=True)
             measurements = _measure_result(result, plan, context)
             outputs = output_record(result.paths, context.output_dir)
         except Exception as err:  # noqa: BLE001 - failure isolation: the error goes into the manifest

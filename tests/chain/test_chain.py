@@ -121,3 +121,20 @@ def test_quoted_hi_mass_noise_matches_the_scatter_of_signal_free_channels(small_
                                  plan.distances.luminosity_distance)
     # 80 samples: the standard deviation is known to about 8%; allow 25%.
     assert_quantity_allclose(result.summary["hi_mass_noise"], measured, rtol=0.25)
+
+
+def test_kept_model_is_the_noise_free_cube(small_run_config):
+    # The model kept beside a noisy run is bit for bit the cube of the same run with the noise off,
+    # and the observed cube differs from it by noise of the planned rms (common practice, no source).
+    config = load_config(small_run_config(), overrides=[])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ParticlesOutsideFieldWarning)   # the small snapshot spills out of band
+        noisy = run(config, write=False, keep_model=True)
+        silent = run(config.replace(["noise.mode=none"]), write=False)
+        plain = run(config, write=False)
+    assert plain.model is None and noisy.model.unit == u.Jy / u.beam
+    assert noisy.model.data.tobytes() == silent.cube.data.tobytes()
+    assert noisy.cube.data.tobytes() == plain.cube.data.tobytes()
+    residual = noisy.cube.data.astype(np.float64) - noisy.model.data
+    rms = noisy.summary["noise_rms"].to_value(u.Jy / u.beam)
+    assert np.std(residual) == pytest.approx(rms, rel=0.05)
