@@ -400,6 +400,7 @@ def render_channels(plan, orientation, *, channels=None, progress=None, keep_mod
     if not 0 <= first < stop <= grid.n_chan:
         raise ValueError(f"'channels' must satisfy 0 <= first < stop <= {grid.n_chan}; got {channels!r}")
     progress = progress or (lambda n_read, n_total: None)
+    threads = config["run.threads"] or None
     shape = (stop - first, grid.n_y, grid.n_x)
     # 0 bytes in RAM: memory-map; else a limit no cube reaches.
     in_memory_limit = 0 if plan.memory.memory_mapped else 1 << 62
@@ -410,7 +411,7 @@ def render_channels(plan, orientation, *, channels=None, progress=None, keep_mod
         convolved = allocate_accumulator(shape, in_memory_limit=in_memory_limit, directory=scratch,
                                          dtype=np.float32)
         observed = convolve_with_beam(Cube(out, _slab_wcs(grid, first, stop), JY_PER_PIXEL), plan.beam,
-                                      threads=config["run.threads"] or None, out=convolved)
+                                      threads=threads, out=convolved)
     peak_model = float(observed.data.max())
     model = None
     if keep_model:
@@ -422,7 +423,7 @@ def render_channels(plan, orientation, *, channels=None, progress=None, keep_mod
         model = dataclasses.replace(observed, data=model_data)
     if plan.noise_rms is not None:
         observed = add_thermal_noise(observed, rms=plan.noise_rms, seed=config["noise.seed"], first_channel=first,
-                                     threads=config["run.threads"] or None, in_place=True)
+                                     threads=threads, in_place=True)
     return RenderedChannels(cube=observed, peak_model=peak_model, model=model, **totals)
 
 

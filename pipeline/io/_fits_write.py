@@ -199,8 +199,9 @@ def _write_data(handle, data):
     """Write ``data`` as big-endian float32 padded to a whole block; return the data unit's word sum.
 
     The array goes about 1 MiB at a time, so memory stays bounded for
-    memory-mapped input (a non-contiguous array is first copied whole).  A second thread converts, sums and byte-swaps the
-    next piece into one of two buffers while this one writes the last.
+    memory-mapped input (a non-contiguous array is first copied whole).  A
+    second thread converts, sums and byte-swaps the next piece into one of two
+    buffers while this one writes the last.
     """
     flat = np.ascontiguousarray(data).reshape(-1)
     starts = range(0, data.size, _VALUES_PER_WRITE)
