@@ -20,7 +20,7 @@ from pipeline.cube import Cube
 from pipeline.emission import (column_density_from_brightness, column_density_from_flux,
                                hi_mass_from_flux, hi_weights_jy_hz, thermal_dispersion)
 from pipeline.errors import (ChannelTooWideWarning, EmptyFieldError, FieldTooSmallWarning,
-                             MemoryBudgetError, OutputError, OversizedParticleWarning,
+                             OutputError, OversizedParticleWarning,
                              ParticlesOutsideFieldWarning, UndersampledBeamWarning)
 from pipeline.geometry import (GridSpec, ViewSpec, angular_momentum_axis, find_centre,
                                find_frame_velocity, make_cube_wcs, make_image_wcs, orient_chunk,
@@ -36,7 +36,7 @@ from pipeline.units import HI_REST_FREQUENCY
 
 __all__ = ["RunPlan", "RunResult", "Orientation", "RenderedChannels", "open_configured_snapshot", "plan_run",
            "orient_galaxy",
-           "render_channels", "summarise", "run", "output_paths"]
+           "render_channels", "summarise", "run", "output_paths", "write_maps"]
 
 @dataclasses.dataclass(frozen=True)
 class RunPlan:
@@ -220,7 +220,8 @@ def plan_run(config, *, snapshot=None, allow_memory_map=True) -> RunPlan:
                          chunk_particles=min(config["snapshot.chunk_particles"], snapshot.n_particles),
                          threads=config["run.threads"] or None, budget=config["run.memory_budget"],
                          scratch_directory=config["run.scratch_directory"] or config["output.directory"],
-                         allow_memory_map=allow_memory_map, source=config.source)
+                         allow_memory_map=allow_memory_map,
+                         budget_place=config.where("run.memory_budget"))
     plan = RunPlan(config=config, snapshot=snapshot, grid=grid, beam=beam, distances=distances,
                    view=view, noise_rms=_noise_rms(config, grid), memory=memory)
     _warn_about_sampling(plan)
@@ -231,7 +232,7 @@ def _warn_about_sampling(plan):
     config, grid = plan.config, plan.grid
     minor_pixels = min(plan.beam_fwhm_pixels)
     if minor_pixels < 3:
-        warnings.warn(f"{config.source}:grid.pixel_scale: the beam FWHM spans only {minor_pixels:.2f} pixels "
+        warnings.warn(f"{config.where('grid.pixel_scale')}: the beam FWHM spans only {minor_pixels:.2f} pixels "
                       f"(fewer than 3); use a smaller pixel_scale", UndersampledBeamWarning, stacklevel=3)
     field_kpc = min(grid.n_x, grid.n_y) * plan.pixel_size_kpc
     selected_kpc = 2 * config["geometry.selection_radius"].to(u.kpc)
@@ -243,7 +244,7 @@ def _warn_about_sampling(plan):
     thermal_fwhm = math.sqrt(8 * math.log(2)) * thermal_dispersion(temperature)
     channel = grid.velocity_channel_width.to(u.km / u.s)
     if channel > thermal_fwhm:
-        warnings.warn(f"{config.source}:grid.channel_width: channels of {channel:.2f} are wider than the "
+        warnings.warn(f"{config.where('grid.channel_width')}: channels of {channel:.2f} are wider than the "
                       f"thermal line FWHM ({thermal_fwhm.to(u.km / u.s):.2f} at the typical {temperature:.0f})",
                       ChannelTooWideWarning, stacklevel=3)
 
@@ -281,7 +282,7 @@ def _check_scratch(plan, paths):
             needed += 4 * int(np.prod(plan.grid.array_shape))
         check_free_space(folder, needed)
     except OutputError as err:
-        raise OutputError(f"{plan.config.source}:run.scratch_directory: {err} (the cube is memory-mapped there "
+        raise OutputError(f"{plan.config.where('run.scratch_directory')}: {err} (the cube is memory-mapped there "
                           f"because it does not fit run.memory_budget)") from err
 
 
@@ -463,7 +464,7 @@ def _deposit_chunks(plan, orientation, out, first, progress):
         contributions += report.n_contributions
         n_oversized += report.n_larger_than_field
     if n_selected == 0:
-        raise EmptyFieldError(f"{config.source}:geometry.selection_radius: no gas particle lies within "
+        raise EmptyFieldError(f"{config.where('geometry.selection_radius')}: no gas particle lies within "
                               f"{radius_kpc:g} kpc of the centre {np.round(centre_kpc, 3).tolist()} kpc")
     if n_oversized:
         warnings.warn(f"{config.source}:grid: {n_oversized} of {n_selected} selected particles have kernels "
@@ -604,18 +605,39 @@ def _whole_cube_mass_noise(plan):
 
 
 def _write_outputs(result, plan, *, overwrite):
-    config, paths, cube = plan.config, result.paths, result.cube
-    velocity, profile = result.summary["velocity"], result.summary["profile"]
-    text = config.to_toml()
-    write_cube(cube, paths["cube"], overwrite=overwrite, config_text=text)
-    image_wcs = make_image_wcs(plan.grid)
+    write_cube(result.cube, result.paths["cube"], overwrite=overwrite, config_text=plan.config.to_toml())
+    write_maps(result.paths, moment0=result.moment0, column_density=result.column_density, grid=plan.grid,
+               beam=plan.beam, velocity=result.summary["velocity"], profile=result.summary["profile"],
+               config=plan.config, overwrite=overwrite)
+
+
+def write_maps(paths, *, moment0, column_density, grid, beam, velocity, profile, config, overwrite):
+    """Write the moment-0 and column-density maps and the preview PNG that ``paths`` names.
+
+    Parameters
+    ----------
+    paths : dict of str to pathlib.Path
+        From `output_paths`; kinds other than "moment0", "column_density"
+        and "preview" are ignored.
+    moment0, column_density : `~astropy.units.Quantity`, shape (n_y, n_x)
+        The maps.
+    grid : `~pipeline.geometry.GridSpec`
+    beam : `~pipeline.instrument.BeamSpec`
+    velocity, profile : `~astropy.units.Quantity`, shape (n_chan,)
+        Channel velocities and global line profile, for the preview.
+    config : RunConfig
+        Stored in the FITS files; names the preview.
+    overwrite : bool
+        Replace existing files.
+    """
+    image_wcs, text = make_image_wcs(grid), config.to_toml()
+    column = column_density.to(u.cm**-2)
     if "moment0" in paths:
-        column = result.column_density.to(u.cm**-2)
-        write_image(result.moment0.value, image_wcs, result.moment0.unit, paths["moment0"],
-                    beam=cube.beam, overwrite=overwrite, config_text=text)
-        write_image(column.value, image_wcs, column.unit, paths["column_density"],
-                    beam=cube.beam, overwrite=overwrite, config_text=text)
+        write_image(moment0.value, image_wcs, moment0.unit, paths["moment0"], beam=beam, overwrite=overwrite,
+                    config_text=text)
+        write_image(column.value, image_wcs, column.unit, paths["column_density"], beam=beam, overwrite=overwrite,
+                    config_text=text)
     if "preview" in paths:
         with atomic_output(paths["preview"], overwrite=overwrite) as partial:
-            plot_preview(result.column_density.to(u.cm**-2), image_wcs, velocity, profile, partial,
-                         beam=cube.beam, title=f"{config['output.name']}: HI column density and line profile")
+            plot_preview(column, image_wcs, velocity, profile, partial, beam=beam,
+                         title=f"{config['output.name']}: HI column density and line profile")

@@ -10,7 +10,6 @@ to reclaim and is not counted.
 """
 
 import dataclasses
-import math
 import os
 from pathlib import Path
 
@@ -18,6 +17,7 @@ import astropy.units as u
 
 from pipeline.errors import MemoryBudgetError
 from pipeline.grid import estimate_chunk_bytes
+from pipeline.instrument import fft_plane_pixels
 from pipeline.units import format_memory
 
 __all__ = ["MemoryPlan", "plan_memory"]
@@ -39,9 +39,6 @@ _PLANE_BYTES_PER_PADDED_PIXEL = 24
 _PLANE_BYTES_PER_PIXEL = 8
 # The 2-D maps (moment 0, column density, their float64 sums and the preview's arrays).
 _MAP_BYTES_PER_PIXEL = 12 * 8
-# Beam kernels reach 6 standard deviations on each side (pipeline.instrument).
-_KERNEL_HALF_WIDTH_SIGMA = 6.0
-_FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))
 
 
 @dataclasses.dataclass(frozen=True)
@@ -72,16 +69,8 @@ class MemoryPlan:
     chunk_memory: u.Quantity
 
 
-def _padded_pixels(array_shape, beam_major_pixels):
-    """Pixels of one plane padded by the beam kernel's half-width on each side (upper bound)."""
-    _, n_y, n_x = array_shape
-    half = math.ceil(_KERNEL_HALF_WIDTH_SIGMA * beam_major_pixels / _FWHM_PER_SIGMA)
-    # scipy.fft.next_fast_len adds at most a few per cent; 10% covers it.
-    return 1.1 * (n_y + 2 * half + 1) * (n_x + 2 * half + 1)
-
-
 def plan_memory(array_shape, *, beam_major_pixels, chunk_particles, threads, budget, scratch_directory,
-                allow_memory_map=True, source="config") -> MemoryPlan:
+                allow_memory_map=True, budget_place="run.memory_budget") -> MemoryPlan:
     """Choose RAM or memory maps for a run's cube and estimate its peak memory.
 
     Parameters
@@ -101,8 +90,9 @@ def plan_memory(array_shape, *, beam_major_pixels, chunk_particles, threads, bud
     allow_memory_map : bool
         With False a cube that does not fit in RAM is an error (batch runs cut
         such cubes into channel slabs instead).
-    source : str
-        Config file named in error messages.
+    budget_place : str
+        Where ``run.memory_budget`` was given, as `RunConfig.where` puts it
+        (``file:run.memory_budget``); starts the error messages.
 
     Returns
     -------
@@ -125,7 +115,7 @@ def plan_memory(array_shape, *, beam_major_pixels, chunk_particles, threads, bud
     """
     n_chan, n_y, n_x = array_shape
     n_threads = threads or os.cpu_count() or 1
-    planes = n_threads * (_PLANE_BYTES_PER_PADDED_PIXEL * _padded_pixels(array_shape, beam_major_pixels)
+    planes = n_threads * (_PLANE_BYTES_PER_PADDED_PIXEL * fft_plane_pixels((n_y, n_x), beam_major_pixels)
                           + _PLANE_BYTES_PER_PIXEL * n_y * n_x)
     chunk = _BYTES_PER_CHUNK_PARTICLE * chunk_particles + estimate_chunk_bytes(chunk_particles)
     resident = _BASELINE_BYTES + planes + _MAP_BYTES_PER_PIXEL * n_y * n_x + chunk
@@ -138,12 +128,12 @@ def plan_memory(array_shape, *, beam_major_pixels, chunk_particles, threads, bud
     shape_text = " x ".join(map(str, array_shape))
     if not allow_memory_map:
         raise MemoryBudgetError(
-            f"{source}:run.memory_budget: the run needs about {format_memory((resident + cubes) * u.byte)} "
+            f"{budget_place}: the run needs about {format_memory((resident + cubes) * u.byte)} "
             f"for a {shape_text} cube, more than the budget of {format_memory(budget)}; reduce grid.n_x, "
             f"grid.n_y or grid.n_chan, or raise run.memory_budget")
     if resident > budget_bytes:
         raise MemoryBudgetError(
-            f"{source}:run.memory_budget: {format_memory(budget)} is too small even with the {shape_text} cube "
+            f"{budget_place}: {format_memory(budget)} is too small even with the {shape_text} cube "
             f"memory-mapped to disk; the minimum is {format_memory(resident * u.byte)}, of which "
             f"{format_memory(chunk * u.byte)} for each snapshot chunk of {chunk_particles} particles; raise "
             f"run.memory_budget to at least that, or lower snapshot.chunk_particles")

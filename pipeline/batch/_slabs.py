@@ -19,14 +19,14 @@ import numpy as np
 from astropy.io import fits
 
 from pipeline import __version__
-from pipeline.analysis import moment0_from_chunks, plot_preview
-from pipeline.chain import orient_galaxy, output_paths, plan_run, render_channels
+from pipeline.analysis import moment0_from_chunks
+from pipeline.chain import orient_galaxy, output_paths, plan_run, render_channels, write_maps
 from pipeline.cube import Cube
 from pipeline.emission import column_density_from_brightness, column_density_from_flux
 from pipeline.errors import EmptyFieldError, MemoryBudgetError
-from pipeline.geometry import make_cube_wcs, make_image_wcs
+from pipeline.geometry import make_cube_wcs
 from pipeline.instrument import add_thermal_noise, cube_to_kelvin
-from pipeline.io import atomic_output, create_fits_cube, finalise_fits_cube, write_fits_slab, write_image
+from pipeline.io import create_fits_cube, finalise_fits_cube, write_fits_slab
 
 from ._catalogue import ChannelSums, measure_channels, noise_correlation
 from ._jobs import (channel_axes, describe_error, finish_measurements, job_record, output_record, peak_memory_mib,
@@ -212,16 +212,8 @@ def _write_maps(work, sums, config):
         column = column_density_from_brightness(map0).to(u.cm**-2)
     else:
         column = column_density_from_flux(map0, work.beam, redshift=work.redshift).to(u.cm**-2)
-    image_wcs, text = make_image_wcs(grid), config.to_toml()
-    if "moment0" in paths:
-        write_image(map0.value, image_wcs, map0.unit, paths["moment0"], beam=work.beam, overwrite=True,
-                    config_text=text)
-        write_image(column.value, image_wcs, column.unit, paths["column_density"], beam=work.beam,
-                    overwrite=True, config_text=text)
-    if "preview" in paths:
-        with atomic_output(paths["preview"], overwrite=True) as partial:
-            plot_preview(column, image_wcs, sums.velocity_kms * u.km / u.s, sums.profile_jy * u.Jy, partial,
-                         beam=work.beam, title=f"{config['output.name']}: HI column density and line profile")
+    write_maps(paths, moment0=map0, column_density=column, grid=grid, beam=work.beam,
+               velocity=sums.velocity_kms * u.km / u.s, profile=sums.profile_jy * u.Jy, config=config, overwrite=True)
     return paths
 
 

@@ -161,6 +161,28 @@ def _padded_shape(plane_shape, kernel_shape) -> tuple[int, int]:
     return tuple(scipy.fft.next_fast_len(n + 2 * (k // 2), real=True) for n, k in zip(plane_shape, kernel_shape))
 
 
+def fft_plane_pixels(plane_shape, beam_major_pixels) -> int:
+    """Return the pixels of one padded FFT plane the beam step uses, at most, for a beam of this major axis.
+
+    Parameters
+    ----------
+    plane_shape : tuple of int
+        ``(n_y, n_x)`` of a channel.
+    beam_major_pixels : float
+        Beam major-axis FWHM in pixels of the (square) grid; the kernel is
+        never wider than that of a round beam of this FWHM.
+
+    Returns
+    -------
+    int
+        ``n_y' n_x'`` of the padded plane: each axis grown by the kernel
+        half-width on both sides and rounded up to a fast FFT length.
+    """
+    half = math.ceil(_KERNEL_HALF_WIDTH_SIGMA * beam_major_pixels / _FWHM_PER_SIGMA)
+    n_y, n_x = _padded_shape(plane_shape, (2 * half + 1, 2 * half + 1))
+    return n_y * n_x
+
+
 def _kernel_spectrum(kernel, padded_shape, *, dtype=np.float64) -> np.ndarray:
     """Real FFT of the kernel placed with its centre on pixel (0, 0) of the padded grid."""
     wrapped = np.zeros(padded_shape, dtype=dtype)

@@ -50,7 +50,7 @@ def test_memory_mapped_peak_follows_the_chunk_not_the_cube():
 
 def test_budget_below_one_chunk_is_refused_with_the_minimum_and_the_minimum_is_enough():
     with pytest.raises(MemoryBudgetError, match=r"too small even with the 128 x 512 x 512 cube memory-mapped") as err:
-        plan_memory(SHAPE, budget=100 * u.MiB, source="galaxy.toml", **COMMON)
+        plan_memory(SHAPE, budget=100 * u.MiB, budget_place="galaxy.toml:run.memory_budget", **COMMON)
     message = str(err.value)
     assert message.startswith("galaxy.toml:run.memory_budget: ")
     assert "snapshot chunk of 100000 particles" in message and "lower snapshot.chunk_particles" in message
@@ -59,7 +59,7 @@ def test_budget_below_one_chunk_is_refused_with_the_minimum_and_the_minimum_is_e
 
 
 def test_without_memory_maps_a_cube_over_budget_is_refused():
-    with pytest.raises(MemoryBudgetError, match=r"config:run.memory_budget: the run needs about .* more than"):
+    with pytest.raises(MemoryBudgetError, match=r"^run.memory_budget: the run needs about .* more than"):
         plan_memory(SHAPE, budget=0.5 * u.GiB, allow_memory_map=False, **COMMON)
 
 
@@ -101,7 +101,7 @@ def test_check_reports_the_plan_in_ram_and_memory_mapped(capsys, small_run_confi
 def test_budget_too_small_for_one_chunk_is_one_line_and_exit_2(capsys, small_run_config):
     code, _, err = run_cli(capsys, "check", small_run_config(), "--set", "run.memory_budget=50 MiB")
     line = one_error_line(err)
-    assert code == 2 and "small.toml:run.memory_budget: 50.0 MiB is too small even with the" in line
+    assert code == 2 and line.startswith("cubewright: error: --set:run.memory_budget: 50.0 MiB is too small even with the")
     assert "the minimum is" in line
 
 

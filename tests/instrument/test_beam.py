@@ -5,6 +5,7 @@ import dataclasses
 import astropy.units as u
 import numpy as np
 import pytest
+import scipy.fft
 from astropy.convolution import convolve_fft
 from astropy.coordinates import SkyCoord
 from astropy.tests.helper import assert_quantity_allclose
@@ -13,7 +14,7 @@ from radio_beam import Beam
 
 from pipeline.cube import Cube
 from pipeline.instrument import (JY_PER_PIXEL, BeamSpec, beam_kernel, convolve_with_beam, cube_to_kelvin,
-                                 jy_per_beam_to_kelvin)
+                                 fft_plane_pixels, jy_per_beam_to_kelvin)
 
 NU0 = 1_420_405_751.768 * u.Hz  # check-values HI-01
 FWHM_PER_SIGMA = np.sqrt(8 * np.log(2))  # check-values BM-01
@@ -283,3 +284,15 @@ def test_cube_to_kelvin_refuses_bad_cubes(make_wcs):
     spectral_first = make_wcs(5, 4, 3).sub([1, 3, 2])
     with pytest.raises(ValueError, match="spectral third axis"):
         cube_to_kelvin(Cube(data, spectral_first, u.Jy / u.beam, beam=beam))
+
+
+@pytest.mark.parametrize("position_angle", [0, 30, 90])
+@pytest.mark.parametrize("minor", [10, 25])
+def test_fft_plane_bound_covers_every_beam_of_that_major_axis(position_angle, minor):
+    # The memory plan counts fft_plane_pixels per thread; the beam step pads each plane by the sampled
+    # kernel's half-width (scipy.fft.next_fast_len), which must never need more.
+    beam = BeamSpec(major=25 * u.arcsec, minor=minor * u.arcsec, position_angle=position_angle * u.deg)
+    kernel = beam_kernel(beam, 4 * u.arcsec)
+    used = np.prod([scipy.fft.next_fast_len(n + 2 * (k // 2), real=True) for n, k in zip((100, 70), kernel.shape)])
+    bound = fft_plane_pixels((100, 70), 25 / 4)
+    assert used <= bound <= 1.5 * used
