@@ -10,15 +10,18 @@ the manifest is rewritten after every job.
 
 import collections
 import contextlib
+import ctypes
+import ctypes.util
 import dataclasses
 import logging
 import math
+import os
 import queue
 import secrets
+import sys
 import time
 import warnings
 
-import dask
 from distributed import Client, LocalCluster, WorkerPlugin, get_worker
 
 from pipeline.errors import ConfigError, CubewrightWarning, OutputError
@@ -34,6 +37,11 @@ CATALOGUE_NAME = "catalogue.ecsv"
 PLOT_NAME = "catalogue.png"
 _PLUGIN_NAME = "cubewright-snapshot-cache"
 _POLL_SECONDS = 0.05
+# glibc's mallopt parameters (malloc.h) and the values batch workers run with.
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+_MMAP_THRESHOLD_BYTES = 32 << 20
+_TRIM_THRESHOLD_BYTES = 64 << 20
+_GLIBC_MMAP_THRESHOLD_DEFAULT = 128 << 10
 
 
 @dataclasses.dataclass(frozen=True)
@@ -65,13 +73,61 @@ class BatchResult:
     wall_time: float
 
 
-class _SnapshotCachePlugin(WorkerPlugin):
-    """Gives each worker process one `SnapshotCache` for the batch."""
+def _glibc_mallopt():
+    """Return glibc's ``mallopt`` function, or None on another C library or system."""
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        if not hasattr(libc, "gnu_get_libc_version"):
+            return None
+        return libc.mallopt
+    except (OSError, AttributeError):
+        return None
+
+
+def _reuse_freed_arrays() -> bool:
+    """Let glibc keep freed blocks below 32 MiB for reuse in this process; return True if it took.
+
+    Dask's nannies start workers with ``MALLOC_TRIM_THRESHOLD_=65536``, which
+    also freezes glibc's mmap threshold at 128 KiB: every larger array is then
+    a fresh mapping whose pages fault in zeroed, on the benchmark's jobs about
+    2000 times the page faults of a plain process and a third more time per
+    job.  Blocks up to 32 MiB come from the heap again, and up to 64 MiB of
+    free heap is kept before it is given back to the system.
+    """
+    mallopt = _glibc_mallopt()
+    if mallopt is None:
+        return False
+    return bool(mallopt(_M_MMAP_THRESHOLD, _MMAP_THRESHOLD_BYTES)) and bool(
+        mallopt(_M_TRIM_THRESHOLD, _TRIM_THRESHOLD_BYTES))
+
+
+def _restore_allocator():
+    """Put back the settings ``MALLOC_TRIM_THRESHOLD_`` gave the worker (glibc's adaptive mode cannot be restored)."""
+    mallopt, trim = _glibc_mallopt(), os.environ.get("MALLOC_TRIM_THRESHOLD_", "")
+    if mallopt is not None and trim.isdigit():
+        mallopt(_M_TRIM_THRESHOLD, int(trim))
+        mallopt(_M_MMAP_THRESHOLD, _GLIBC_MMAP_THRESHOLD_DEFAULT)
+
+
+class _BatchWorkerPlugin(WorkerPlugin):
+    """Readies each worker process for the batch: one `SnapshotCache`, and freed arrays kept for reuse.
+
+    The allocator setting is undone when the batch ends and the plugin is
+    removed, so a shared cluster's workers go back to how they were.
+    """
 
     name = _PLUGIN_NAME
 
     def setup(self, worker):
         self.cache = SnapshotCache()
+        self.reusing = _reuse_freed_arrays()
+
+    def teardown(self, worker):
+        self.cache.clear()
+        if self.reusing:
+            _restore_allocator()
 
 
 def _worker_cache():
@@ -223,7 +279,7 @@ def _run_here(jobs, context, accept):
 
 
 def _run_on_dask(client, jobs, context, accept):
-    client.register_plugin(_SnapshotCachePlugin(), name=_PLUGIN_NAME)
+    client.register_plugin(_BatchWorkerPlugin(), name=_PLUGIN_NAME)
     topic = f"cubewright-batch-{secrets.token_hex(8)}"
     events = queue.Queue()
     client.subscribe_topic(topic, lambda event: events.put(event[1]))
@@ -243,11 +299,14 @@ def _run_on_dask(client, jobs, context, accept):
                 _collect(client, future, kind, what, context, pending, accept)
         while not events.empty():
             accept(events.get())
+        return client.run(_take_reads)
     finally:
         client.unsubscribe_topic(topic)
         for future in pending:
             future.cancel()
-    return client.run(_take_reads)
+        # Undo the plugin's settings on the workers; a cluster that is gone has nothing left to undo.
+        with contextlib.suppress(Exception):
+            client.unregister_worker_plugin(_PLUGIN_NAME)
 
 
 def _collect(client, future, kind, what, context, pending, accept):
@@ -306,18 +365,9 @@ def make_jobqueue_cluster(cluster):
 
 
 def _start_local_cluster(n_workers):
-    """Return a `distributed.LocalCluster` of ``n_workers`` single-threaded worker processes.
-
-    Dask's nannies set ``MALLOC_TRIM_THRESHOLD_`` in their workers by default,
-    which freezes glibc's mmap threshold at 128 KiB: every larger array is then
-    a fresh mapping whose pages fault in zeroed, 20 times the page faults of a
-    plain process and about a third more time per job here.  Our workers keep
-    glibc's adaptive threshold instead (it still returns arrays above 32 MiB to
-    the system at once); a value set in the environment is honoured.
-    """
-    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
-        return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=":0",
-                            silence_logs=logging.ERROR)
+    """Return a `distributed.LocalCluster` of ``n_workers`` single-threaded worker processes."""
+    return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=":0",
+                        silence_logs=logging.ERROR)
 
 
 @contextlib.contextmanager

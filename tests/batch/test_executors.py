@@ -5,6 +5,7 @@ once per worker, and isolate failing jobs.
 """
 
 import logging
+import sys
 
 import numpy as np
 import pytest
@@ -106,6 +107,41 @@ def test_failing_jobs_are_recorded_and_the_others_finish(write_batch, make_snaps
     for name in ("broken_normal", "broken_tiny"):
         assert status[name][0] == "failed" and "SnapshotError" in status[name][1] and "not an HDF5" in status[name][1]
     assert result.failed == ("snapshot_tiny", "broken_normal", "broken_tiny")
+
+
+def _faults_per_page_of_a_fresh_array():
+    """Minor page faults (getrusage(2)) per page of a 1 MiB array, filled and freed ten times after a first one.
+
+    1 MiB is too small for a transparent huge page, so every fault is one page.
+    """
+    import resource
+
+    n_pages = (1 << 20) // resource.getpagesize()
+    np.ones(1 << 17)    # the first one may grow the heap
+    before = resource.getrusage(resource.RUSAGE_SELF).ru_minflt
+    for _ in range(10):
+        np.ones(1 << 17)
+    return (resource.getrusage(resource.RUSAGE_SELF).ru_minflt - before) / (10 * n_pages)
+
+
+@pytest.mark.dask
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc's mallopt(3) is a Linux facility")
+def test_batch_workers_reuse_freed_arrays_and_go_back_to_their_setting_after(cluster):
+    # mallopt(3) (glibc manual): blocks below M_MMAP_THRESHOLD come from the heap and are reused when
+    # freed, so refilling one no longer faults its pages in again; a block served by mmap faults in
+    # every page each time.  The plugin of a batch raises the threshold and removing it undoes that.
+    from distributed import Client
+
+    from pipeline.batch._executors import _PLUGIN_NAME, _BatchWorkerPlugin
+
+    with Client(cluster) as client:
+        before = list(client.run(_faults_per_page_of_a_fresh_array).values())
+        client.register_plugin(_BatchWorkerPlugin(), name=_PLUGIN_NAME)
+        during = list(client.run(_faults_per_page_of_a_fresh_array).values())
+        client.unregister_worker_plugin(_PLUGIN_NAME)
+        after = list(client.run(_faults_per_page_of_a_fresh_array).values())
+    assert max(during) < 0.05, during
+    assert np.allclose(after, before, atol=0.2), (before, after)
 
 
 @pytest.mark.dask
