@@ -155,20 +155,21 @@ def _check_override_texts(overrides):
     return tuple(overrides)
 
 
-def _override_layer(overrides, origin):
-    """Return one layer of overrides as ``((text, origin, is_place), ...)``.
+def _override_layer(overrides, origin, base_dir):
+    """Return one layer of overrides as ``(base_dir, ((text, origin, is_place), ...))``.
 
     ``origin`` is a str naming the source of every override (errors read
-    ``origin:key.path:``) or one full place per override (errors read ``place:``).
+    ``origin:key.path:``) or one full place per override (errors read ``place:``);
+    relative paths in the layer start at ``base_dir``.
     """
     texts = _check_override_texts(overrides)
     if isinstance(origin, str):
-        return tuple((text, origin, False) for text in texts)
+        return Path(base_dir), tuple((text, origin, False) for text in texts)
     places = tuple(origin) if isinstance(origin, (list, tuple)) else None
     if places is None or len(places) != len(texts) or not all(isinstance(place, str) for place in places):
         raise TypeError(f"origin must be a string or a sequence of one string per override ({len(texts)}); "
                         f"got {origin!r}")
-    return tuple((text, place, True) for text, place in zip(texts, places))
+    return Path(base_dir), tuple((text, place, True) for text, place in zip(texts, places))
 
 
 def _parse_plain(raw, kind):
@@ -363,7 +364,8 @@ def _check_rules(values, source, places, ranks):
 
 def _build(file_values, *, source, base_dir, override_layers):
     layers = [({key: f"{source}:{key}" for key in file_values}, file_values)]
-    for overrides in override_layers:
+    folders = [base_dir, *(folder for folder, _ in override_layers)]
+    for _, overrides in override_layers:
         where, layer = {}, {}
         for text, origin, is_place in overrides:
             key, layer[key] = _parse_override(text, origin, is_place)
@@ -373,7 +375,7 @@ def _build(file_values, *, source, base_dir, override_layers):
     values = {}
     for key, raw in given.items():
         try:
-            values[key] = _normalise(PARAMS_BY_KEY[key], raw, base_dir)
+            values[key] = _normalise(PARAMS_BY_KEY[key], raw, folders[ranks[key]])
         except Problem as problem:
             raise ConfigError(f"{places[key]}: {problem}") from problem
     unused = _unused_alternatives(given)
@@ -400,6 +402,7 @@ def load_config(path, *, overrides=()) -> "RunConfig":
         as a TOML value when it parses as one (``64``, ``true``, ``'a b'``,
         ``["1 kpc", "0 kpc", "0 kpc"]``) and is taken as a bare string otherwise
         (``12 arcsec``); string, path and unit keys always take the text.
+        Relative paths in them start at the current folder, as on a command line.
 
     Returns
     -------
@@ -424,7 +427,7 @@ def load_config(path, *, overrides=()) -> "RunConfig":
     (64, <Quantity 40. arcsec>)
     """
     source = os.fspath(path)
-    override_layers = (_override_layer(overrides, _OVERRIDE_ORIGIN),)
+    override_layers = (_override_layer(overrides, _OVERRIDE_ORIGIN, Path.cwd()),)
     table = read_toml_file(path, what="config file")
     return _build(_flatten(table, source), source=source, base_dir=Path(path).resolve().parent,
                   override_layers=override_layers)
@@ -489,8 +492,8 @@ def config_from_dict(mapping, *, source="<dict>", base_dir=None, overrides=()) -
     """
     if not isinstance(mapping, Mapping):
         raise TypeError(f"mapping must be a mapping of config sections; got {type(mapping).__name__}")
-    override_layers = (_override_layer(overrides, _OVERRIDE_ORIGIN),)
     folder = Path.cwd() if base_dir is None else Path(base_dir).resolve()
+    override_layers = (_override_layer(overrides, _OVERRIDE_ORIGIN, folder),)
     return _build(_flatten(mapping, source), source=source, base_dir=folder, override_layers=override_layers)
 
 
@@ -657,7 +660,8 @@ class RunConfig:
         Parameters
         ----------
         overrides : sequence of str
-            ``"key.path=value"`` strings, read as in `load_config`.
+            ``"key.path=value"`` strings, read as in `load_config`; relative
+            paths in them start at the config file's folder (`base_dir`).
         origin : str or sequence of str
             Where the overrides come from, for error messages and `where`.  A
             string names their source as a file name would: a bad value reads
@@ -683,7 +687,7 @@ class RunConfig:
         ...
         pipeline.errors.ConfigError: batch.toml:sweep.keys.grid.n_x[1]: expected a value of at least 1; got 0
         """
-        layers = (*self._override_layers, _override_layer(overrides, origin))
+        layers = (*self._override_layers, _override_layer(overrides, origin, self.base_dir))
         return _build(dict(self._file_values), source=self.source, base_dir=self.base_dir,
                       override_layers=layers)
 

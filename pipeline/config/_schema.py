@@ -188,7 +188,8 @@ PARAMS = (
     Param("noise.integration_time", "time", "4 h", "on-source integration time", positive=True),
     Param("noise.seed", "int", 1, "seed of the noise generator", minimum=0),
     # --- output -------------------------------------------------------------------
-    Param("output.directory", "path", "output", "folder for the written files (relative to the config's folder)"),
+    Param("output.directory", "path", "output",
+          "folder for the written files (relative to the config's folder; to the current one in --set)"),
     Param("output.name", "str", "cube", "base name of the written files"),
     Param("output.moment0", "bool", True, "also write the moment-0 map"),
     Param("output.preview", "bool", True, "also write a PNG preview"),
@@ -196,7 +197,7 @@ PARAMS = (
     Param("run.memory_budget", "memory", "8 GiB",
           "largest estimated peak memory; a cube that does not fit in it is memory-mapped to disk", positive=True),
     Param("run.scratch_directory", "path", None,
-          "folder for the memory-mapped working cube (unset: output.directory; relative to the config's folder)"),
+          "folder for the memory-mapped working cube (unset: output.directory; relative as output.directory)"),
     Param("run.threads", "int", 0, "threads for the deposit, beam and noise (0 = all cores)", minimum=0),
 )
 

@@ -178,6 +178,20 @@ def test_paths_resolve_against_the_config_folder(tmp_path):
     assert config["output.directory"] == Path("/elsewhere/out")
 
 
+def test_command_line_paths_start_at_the_current_folder_and_replace_paths_at_the_config_folder(tmp_path,
+                                                                                                monkeypatch):
+    (tmp_path / "runs").mkdir()
+    (tmp_path / "work").mkdir()
+    path = write(tmp_path / "runs", '[snapshot]\npath = "snap.h5"\n[observer]\ndistance = "8.5 Mpc"\n')
+    monkeypatch.chdir(tmp_path / "work")
+    config = load_config(path, overrides=["snapshot.path=data/galaxy.h5"])
+    assert config["snapshot.path"] == (tmp_path / "work" / "data" / "galaxy.h5").resolve()
+    assert config["output.directory"] == (tmp_path / "runs" / "output").resolve()
+    replaced = config.replace(["run.scratch_directory=scratch"])
+    assert replaced["run.scratch_directory"] == (tmp_path / "runs" / "scratch").resolve()
+    assert replaced["snapshot.path"] == config["snapshot.path"]
+
+
 def test_a_value_replaces_the_default_dataset_and_a_dataset_the_default_value():
     config = make(snapshot={"fields": {"temperature": {"value": 8000.0},
                                        "hydrogen_fraction": {"dataset": "gas/x_h"}}})
