@@ -7,6 +7,7 @@ import astropy.units as u
 
 from pipeline.chain import open_configured_snapshot, plan_run
 from pipeline.errors import CubewrightError, MemoryBudgetError
+from pipeline.units import format_memory
 
 from ._jobs import JobContext, describe_error
 from ._slabs import UNBOUNDED_BUDGET, plan_slabs
@@ -93,5 +94,6 @@ def format_estimates(estimates) -> str:
     if good:
         largest = max(estimate.peak_memory for estimate in good)
         total = sum(estimate.disk.value for estimate in good) * u.MiB
-        lines.append(f"{len(estimates)} job(s); largest peak memory {largest:.1f}; total disk {total.to(u.GiB):.3f}")
+        lines.append(f"{len(estimates)} job(s); largest peak memory {format_memory(largest)}; "
+                     f"total disk {format_memory(total)}")
     return "\n".join(lines)

@@ -1,5 +1,7 @@
 """cubewright batch from the command line: dry run, exit codes, one-line errors for bad input."""
 
+import re
+
 import pytest
 
 from cli_calls import one_error_line, run_cli
@@ -23,7 +25,7 @@ def test_dry_run_lists_jobs_with_memory_and_disk_and_writes_nothing(capsys, writ
     assert "peak memory" in lines[0] and "disk" in lines[0]
     assert lines[1].split()[:2] == ["0", "v0_i30"] and "MiB" in lines[1] and "inclination=30" in lines[1]
     assert lines[2].split()[:2] == ["1", "v1_i60"]
-    assert lines[-1].startswith("2 job(s); largest peak memory")
+    assert re.fullmatch(r"2 job\(s\); largest peak memory [0-9.]+ MiB; total disk [0-9.]+ [KMG]iB", lines[-1])
     assert not (tmp_path / "batch_out").exists()
 
 
