@@ -70,6 +70,34 @@ def plot_preview(moment_map, image_wcs, velocity, flux_density, path, *, beam=No
     plt.close(figure)
 
 
+def _tick_label(value, _position=None):
+    """A log-axis tick as a plain number (``200``, ``0.5``), or as m×10^n beyond 1e5."""
+    if value >= 1e5:
+        mantissa, exponent = f"{value:.0e}".split("e")
+        return rf"${mantissa}\times10^{{{int(exponent)}}}$"
+    return f"{value:g}"
+
+
+def _set_value_scale(axis, values):
+    """Log y axis with plain numbers when ``values`` span more than a decade, else a linear one.
+
+    Minor ticks are labelled (at 2 and 5 times a power of ten) only when the
+    axis spans at most two decades, so that labels never run into each other.
+    """
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    if values.size == 0 or values.max() <= 10 * values.min():
+        return
+    axis.set_yscale("log")
+    plain = FuncFormatter(_tick_label)
+    axis.yaxis.set_major_formatter(plain)
+    if values.max() <= 100 * values.min():
+        axis.yaxis.set_minor_locator(LogLocator(subs=(2.0, 5.0)))
+        axis.yaxis.set_minor_formatter(plain)
+    else:
+        axis.yaxis.set_minor_formatter(NullFormatter())
+
+
 def plot_batch_summary(table, path, *, detection_threshold=None):
     """Write a 2 x 2 PNG of integrated S/N and recovered HI mass against inclination and distance.
 
@@ -89,7 +117,6 @@ def plot_batch_summary(table, path, *, detection_threshold=None):
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
     from matplotlib.lines import Line2D
-    from matplotlib.ticker import FuncFormatter
 
     inclination = np.asarray(table["inclination"], dtype=float)
     distance = np.asarray(table["distance"], dtype=float)
@@ -114,11 +141,7 @@ def plot_batch_summary(table, path, *, detection_threshold=None):
             handles = [Line2D([], [], color="0.3", marker=marker, linestyle="", label=label)
                        for marker, label in (("o", "detected"), ("x", "not detected"))]
             axis.legend(handles=handles, loc="best", fontsize="small")
-        axis.set_yscale("log")
-        if row == 0:
-            plain = FuncFormatter(lambda value, _: f"{value:g}")
-            axis.yaxis.set_major_formatter(plain)
-            axis.yaxis.set_minor_formatter(plain)
+        _set_value_scale(axis, y[positive])
         if row == 0 and detection_threshold is not None:
             axis.axhline(detection_threshold, color="0.4", linestyle="--", linewidth=1)
         axis.set_ylabel("Integrated S/N" if row == 0 else r"Recovered HI mass ($M_\odot$)")
