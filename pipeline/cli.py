@@ -202,7 +202,8 @@ def _command_batch(args):
     if args.workers is not None and args.workers < 1:
         raise ConfigError(f"--workers: expected a whole number of at least 1; got {args.workers}")
     workers = args.workers or min(os.cpu_count() or 1, len(batch.jobs))
-    bar = tqdm(desc="batch", unit="job", disable=args.quiet or not sys.stderr.isatty())
+    # The total is every job until the run says how many it skips as complete (--resume).
+    bar = tqdm(desc="batch", unit="job", total=len(batch.jobs), disable=args.quiet or not sys.stderr.isatty())
 
     def advance(record, n_finished, n_to_run):
         bar.total = n_to_run
