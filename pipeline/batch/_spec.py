@@ -290,6 +290,14 @@ def _resolve(folder, text):
     return (path if path.is_absolute() else folder / path).resolve()
 
 
+def _override(folder, key, value):
+    """Return the ``key=value`` override of a batch-file value; a relative path starts at the batch file's folder."""
+    param = PARAMS_BY_KEY.get(key)
+    if param is not None and param.kind == "path" and isinstance(value, str):
+        value = os.fspath(_resolve(folder, value))
+    return f"{key}={toml_literal(value)}"
+
+
 def _expand_snapshots(origin, folder, entries):
     """Return [(snapshot path, the sweep.snapshots entry that named it)]."""
     paths, places = [], []
@@ -542,7 +550,7 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
         for name, overrides in table.items():
             place = f"sweep.instruments.{name}"
             flat = _flatten_overrides(origin, place, _table(origin, place, overrides), leaf_is_list=False)
-            instruments.append((name, tuple((f"{key}={toml_literal(value)}", where)
+            instruments.append((name, tuple((_override(folder, key, value), where)
                                             for key, (value, where) in flat.items())))
     swept = {}
     if "keys" in sweep:
@@ -552,7 +560,7 @@ def load_batch(path, *, output_dir=None) -> BatchSpec:
     _check_template(origin, template, fields)
 
     jobs, by_name = [], {}
-    key_values = [[(key, value, (f"{key}={toml_literal(value)}", f"{place}[{k}]")) for k, value in enumerate(raw)]
+    key_values = [[(key, value, (_override(folder, key, value), f"{place}[{k}]")) for k, value in enumerate(raw)]
                   for key, (raw, place) in swept.items()]
     combinations = itertools.product(snapshots, views, distances, instruments, itertools.product(*key_values))
     for index, (snapshot, view, distance, instrument, keyed) in enumerate(combinations):

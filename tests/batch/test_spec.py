@@ -1,5 +1,7 @@
 """Batch files: sweep expansion, refusals with file:key messages, names, uniform views."""
 
+from pathlib import Path
+
 import astropy.units as u
 import numpy as np
 import pytest
@@ -51,6 +53,21 @@ def test_pairs_instruments_and_swept_keys_become_overrides(write_batch):
     assert u.isclose(config["beam.major"], 60 * u.arcsec) and u.isclose(config["beam.minor"], 50 * u.arcsec)
     assert u.isclose(config["noise.integration_time"], 8 * u.h)
     assert job.parameters["instrument"] == "wide" and job.parameters["noise_integration_time"] == "8 h"
+
+
+def test_swept_paths_start_at_the_batch_files_folder(write_batch, tmp_path):
+    # The batch file lives one folder below the base run config: its relative paths are its own.
+    (tmp_path / "sweeps").mkdir()
+    base = write_batch().read_text().replace('run_config = "', 'run_config = "../')
+    path = tmp_path / "sweeps" / "batch.toml"
+    path.write_text(base + 'name = "{index}"\n[sweep.keys.run]\nscratch_directory = ["scratch_a", "/abs/b"]\n')
+    batch = load_batch(path)
+    folders = [batch.job_config(job)["run.scratch_directory"] for job in batch.jobs]
+    assert folders == [(tmp_path / "sweeps" / "scratch_a").resolve(), Path("/abs/b").resolve()]
+    assert batch.jobs[0].parameters["run_scratch_directory"] == "scratch_a"
+    path.write_text(base + 'name = "{instrument}"\n[sweep.instruments.fast.run]\nscratch_directory = "fast"\n')
+    batch = load_batch(path)
+    assert batch.job_config(batch.jobs[0])["run.scratch_directory"] == (tmp_path / "sweeps" / "fast").resolve()
 
 
 def test_redshifts_replace_the_base_distance(write_batch):
