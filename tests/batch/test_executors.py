@@ -164,6 +164,19 @@ def test_a_slurm_cluster_section_gives_the_expected_job_script():
                  "#SBATCH --cpus-per-task=8", "module load python", "--nworkers 4", "--nthreads 2"):
         assert line in script, script
     assert "#SBATCH --mem=" in script and "distributed.cli.dask_worker" in script
+    assert script.index("export DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False") < script.index("module load python")
+
+
+@pytest.mark.dask
+def test_clusters_the_batch_starts_run_their_workers_without_the_profiler():
+    import dask
+
+    # The job-script line means what it says to Dask's own config reader.
+    read = dask.config.collect(paths=[], env={"DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED": "False"})
+    assert read["distributed"]["worker"]["profile"]["enabled"] is False
+    with connect_client(workers=1) as client:
+        assert list(client.run(dask.config.get, "distributed.worker.profile.enabled").values()) == [False]
+    assert dask.config.get("distributed.worker.profile.enabled") is True
 
 
 @pytest.mark.dask
