@@ -140,6 +140,9 @@ def plot_batch_summary(table, path, *, detection_threshold=None):
             figure.colorbar(scatter, ax=axis).set_label(colour_label)
             handles = [Line2D([], [], color="0.3", marker=marker, linestyle="", label=label)
                        for marker, label in (("o", "detected"), ("x", "not detected"))]
+            if row == 0 and detection_threshold is not None:
+                handles.append(Line2D([], [], color="0.4", linestyle="--", linewidth=1,
+                                      label=f"threshold (S/N {detection_threshold:g})"))
             axis.legend(handles=handles, loc="best", fontsize="small")
         _set_value_scale(axis, y[positive])
         if row == 0 and detection_threshold is not None:
