@@ -36,7 +36,6 @@ __all__ = ["BatchResult", "run_batch", "connect_client", "make_jobqueue_cluster"
 
 CATALOGUE_NAME = "catalogue.ecsv"
 PLOT_NAME = "catalogue.png"
-_PLUGIN_NAME = "cubewright-snapshot-cache"
 _POLL_SECONDS = 0.05
 # glibc's mallopt parameters (malloc.h) and the values batch workers run with.
 _M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
@@ -123,8 +122,6 @@ class _BatchWorkerPlugin(WorkerPlugin):
     removed, so a shared cluster's workers go back to how they were.
     """
 
-    name = _PLUGIN_NAME
-
     def setup(self, worker):
         self.cache = SnapshotCache()
         self.reusing = _reuse_freed_arrays()
@@ -135,30 +132,30 @@ class _BatchWorkerPlugin(WorkerPlugin):
             _restore_allocator()
 
 
-def _worker_cache():
-    return get_worker().plugins[_PLUGIN_NAME].cache
+def _worker_cache(run_name):
+    return get_worker().plugins[run_name].cache
 
 
-def _group_task(jobs, context, topic):
+def _group_task(jobs, context, run_name):
     worker = get_worker()
 
     def report(outcome):
         if isinstance(outcome, dict):
-            worker.log_event(topic, outcome)
+            worker.log_event(run_name, outcome)
 
-    return run_group(jobs, context, _worker_cache(), report=report)
+    return run_group(jobs, context, _worker_cache(run_name), report=report)
 
 
-def _slab_task(work, channels, context):
-    return render_slab(work, channels, context, _worker_cache())
+def _slab_task(work, channels, context, run_name):
+    return render_slab(work, channels, context, _worker_cache(run_name))
 
 
 def _finish_task(work, results, context):
     return finish_slab_job(work, results, context)
 
 
-def _take_reads(dask_worker):
-    plugin = dask_worker.plugins.get(_PLUGIN_NAME)
+def _take_reads(run_name, dask_worker):
+    plugin = dask_worker.plugins.get(run_name)
     if plugin is None:
         return {}
     reads = dict(plugin.cache.reads)
@@ -284,14 +281,15 @@ def _run_here(jobs, context, accept):
 
 
 def _run_on_dask(client, jobs, context, accept):
-    client.register_plugin(_BatchWorkerPlugin(), name=_PLUGIN_NAME)
-    topic = f"cubewright-batch-{secrets.token_hex(8)}"
+    # One name per run, for the worker plugin and the event topic: batches sharing a cluster keep apart.
+    run_name = f"cubewright-batch-{secrets.token_hex(8)}"
+    client.register_plugin(_BatchWorkerPlugin(), name=run_name)
     events = queue.Queue()
-    client.subscribe_topic(topic, lambda event: events.put(event[1]))
+    client.subscribe_topic(run_name, lambda event: events.put(event[1]))
     pending = {}
     try:
         for chunk in _split_groups(jobs, len(client.nthreads())):
-            pending[client.submit(_group_task, chunk, context, topic, pure=False)] = ("group", chunk)
+            pending[client.submit(_group_task, chunk, context, run_name, pure=False)] = ("group", chunk)
         while pending:
             try:
                 event = events.get(timeout=_POLL_SECONDS)
@@ -301,20 +299,20 @@ def _run_on_dask(client, jobs, context, accept):
                 accept(event)
             for future in [future for future in pending if future.done()]:
                 kind, what = pending.pop(future)
-                _collect(client, future, kind, what, context, pending, accept)
+                _collect(client, run_name, future, kind, what, context, pending, accept)
         while not events.empty():
             accept(events.get())
-        return client.run(_take_reads)
+        return client.run(_take_reads, run_name)
     finally:
-        client.unsubscribe_topic(topic)
+        client.unsubscribe_topic(run_name)
         for future in pending:
             future.cancel()
         # Undo the plugin's settings on the workers; a cluster that is gone has nothing left to undo.
         with contextlib.suppress(Exception):
-            client.unregister_worker_plugin(_PLUGIN_NAME)
+            client.unregister_worker_plugin(run_name)
 
 
-def _collect(client, future, kind, what, context, pending, accept):
+def _collect(client, run_name, future, kind, what, context, pending, accept):
     """Take a finished task's outcome: records, or slab requests to submit."""
     if future.status != "finished":
         error = describe_error(future.exception())
@@ -330,7 +328,7 @@ def _collect(client, future, kind, what, context, pending, accept):
         return
     for outcome in future.result():
         if isinstance(outcome, SlabWork):
-            parts = [client.submit(_slab_task, outcome, channels, context, pure=False) for channels in outcome.ranges]
+            parts = [client.submit(_slab_task, outcome, channels, context, run_name, pure=False) for channels in outcome.ranges]
             pending[client.submit(_finish_task, outcome, parts, context, pure=False)] = ("slabs", outcome)
         else:
             accept(outcome)

@@ -78,6 +78,28 @@ def test_one_worker_two_workers_and_an_external_scheduler_give_identical_results
     assert [n for reads in result_here.snapshot_reads.values() for n in reads.values()] == [1, 1]
 
 
+@pytest.mark.dask
+def test_two_batches_at_once_on_one_cluster_keep_their_snapshot_caches_apart(sweep, cluster, tmp_path):
+    import concurrent.futures
+
+    from distributed import Client
+
+    batches = [load_batch(sweep, output_dir=tmp_path / name) for name in ("first", "second")]
+
+    def run_on_cluster(batch):
+        with Client(cluster) as client:
+            return run_batch(batch, client=client)
+
+    with concurrent.futures.ThreadPoolExecutor(2) as pool:
+        first, second = pool.map(run_on_cluster, batches)
+    assert first.failed == second.failed == ()
+    reference = _cubes(first, batches[0])
+    assert {name: data.tobytes() for name, data in _cubes(second, batches[1]).items()} == \
+        {name: data.tobytes() for name, data in reference.items()}
+    for result in (first, second):
+        assert {n for reads in result.snapshot_reads.values() for n in reads.values()} == {1}
+
+
 def _broken_sweep(write_batch, make_snapshot, tmp_path):
     (tmp_path / "broken.h5").write_text("not HDF5")
     return write_batch("""
@@ -132,13 +154,13 @@ def test_batch_workers_reuse_freed_arrays_and_go_back_to_their_setting_after(clu
     # every page each time.  The plugin of a batch raises the threshold and removing it undoes that.
     from distributed import Client
 
-    from pipeline.batch._executors import _PLUGIN_NAME, _BatchWorkerPlugin
+    from pipeline.batch._executors import _BatchWorkerPlugin
 
     with Client(cluster) as client:
         before = list(client.run(_faults_per_page_of_a_fresh_array).values())
-        client.register_plugin(_BatchWorkerPlugin(), name=_PLUGIN_NAME)
+        client.register_plugin(_BatchWorkerPlugin(), name="allocator-test")
         during = list(client.run(_faults_per_page_of_a_fresh_array).values())
-        client.unregister_worker_plugin(_PLUGIN_NAME)
+        client.unregister_worker_plugin("allocator-test")
         after = list(client.run(_faults_per_page_of_a_fresh_array).values())
     assert max(during) < 0.05, during
     assert np.allclose(after, before, atol=0.2), (before, after)
