@@ -44,8 +44,10 @@ _TRIM_THRESHOLD_BYTES = 64 << 20
 _GLIBC_MMAP_THRESHOLD_DEFAULT = 128 << 10
 # Dask workers sample the stack of the running task every 10 ms for the dashboard's profile page;
 # on 2 cores that cost the benchmark's 2-worker batch about 8% of its throughput.  Clusters the
-# batch starts itself (local, dask-jobqueue) run without it: (config key, environment variable).
-_PROFILER_OFF = ("distributed.worker.profile.enabled", "DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED")
+# batch starts itself (local, dask-jobqueue) run without it: the config key, and the environment
+# variable that sets it on a batch-queue node.
+_PROFILER_KEY = "distributed.worker.profile.enabled"
+_PROFILER_VARIABLE = "DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED"
 
 
 @dataclasses.dataclass(frozen=True)
@@ -361,7 +363,7 @@ def make_jobqueue_cluster(cluster):
     options.setdefault("memory", "4 GiB")
     options.setdefault("processes", options["cores"])
     options["memory"] = options["memory"].replace(" ", "")
-    options["job_script_prologue"] = [f"export {_PROFILER_OFF[1]}=False", *options.get("job_script_prologue", ())]
+    options["job_script_prologue"] = [f"export {_PROFILER_VARIABLE}=False", *options.get("job_script_prologue", ())]
     # A free port for the dashboard, so that a second batch on the same login node starts cleanly.
     options["scheduler_options"] = {"dashboard_address": ":0"}
     make = dask_jobqueue.SLURMCluster if cluster["kind"] == "slurm" else dask_jobqueue.PBSCluster
@@ -371,9 +373,9 @@ def make_jobqueue_cluster(cluster):
 def _start_local_cluster(n_workers):
     """Return a `distributed.LocalCluster` of ``n_workers`` single-threaded worker processes.
 
-    The workers run without Dask's statistical profiler (see ``_PROFILER_OFF``).
+    The workers run without Dask's statistical profiler (see ``_PROFILER_KEY``).
     """
-    with dask.config.set({_PROFILER_OFF[0]: False}):
+    with dask.config.set({_PROFILER_KEY: False}):
         return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=":0",
                             silence_logs=logging.ERROR)
 
