@@ -17,7 +17,7 @@ from pipeline import __version__
 from pipeline.analysis import global_profile, integrated_flux, line_width_w50, moment0, plot_preview
 from pipeline.config import PARAMS_BY_KEY, SNAPSHOT_FIELDS
 from pipeline.cube import Cube
-from pipeline.emission import (column_density_from_brightness, column_density_from_flux,
+from pipeline.emission import (column_density_from_flux,
                                hi_mass_from_flux, hi_weights_jy_hz, thermal_dispersion)
 from pipeline.errors import (ChannelTooWideWarning, EmptyFieldError, FieldTooSmallWarning,
                              OutputError, OversizedParticleWarning,
@@ -159,6 +159,12 @@ def _noise_rms(config, grid):
                               correlator_efficiency=config["noise.correlator_efficiency"], **common)
 
 
+def _systemic_velocity(config):
+    """The configured cz, or 0 km/s in redshift mode (the redshift is then the systemic one)."""
+    velocity = config["observer.systemic_velocity"]
+    return 0 * u.km / u.s if velocity is None else velocity
+
+
 def _typical_temperature(snapshot):
     """Mass-weighted median temperature of the first chunk (cheap; for the channel check)."""
     chunk = next(iter(snapshot.iter_chunks()), None)
@@ -204,7 +210,7 @@ def plan_run(config, *, snapshot=None, allow_memory_map=True) -> RunPlan:
     distances = resolve_distances(distance=config["observer.distance"],
                                   redshift=config["observer.redshift"],
                                   cosmology=config["observer.cosmology"],
-                                  systemic_velocity=config["observer.systemic_velocity"])
+                                  systemic_velocity=_systemic_velocity(config))
     grid = GridSpec.from_channel_width(
         n_x=config["grid.n_x"], n_y=config["grid.n_y"], n_chan=config["grid.n_chan"],
         pixel_scale=config["grid.pixel_scale"], ra=config["observer.ra"], dec=config["observer.dec"],
@@ -554,15 +560,16 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
     config, in_jy = plan.config, rendered.cube
     velocity, profile = global_profile(in_jy)
     recovered = hi_mass_from_flux(integrated_flux(in_jy), plan.distances.luminosity_distance)
+    # N_HI from the Jy/beam map whatever the output unit: one map for K and Jy/beam, with the
+    # cosmological dimming of check-values HI-14 (a K map converted channel by channel at the
+    # observed frequency would need its own (1 + z) factors).
+    column = column_density_from_flux(moment0(in_jy), plan.beam, redshift=plan.distances.redshift)
     if config["emission.unit"] == "K":
         observed = cube_to_kelvin(in_jy, in_place=plan.memory.memory_mapped)
+        map0 = moment0(observed)
     else:
         observed = in_jy
-    map0 = moment0(observed)
-    if observed.unit.is_equivalent(u.K):
-        column = column_density_from_brightness(map0)
-    else:
-        column = column_density_from_flux(map0, plan.beam, redshift=plan.distances.redshift)
+        map0 = moment0(observed)
     provenance = {
         "tool": f"cubewright {__version__}",
         "config_digest": config.digest,
@@ -571,6 +578,7 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
     }
     observed = dataclasses.replace(observed, provenance={**observed.provenance, **provenance})
     noise = plan.noise_rms
+    w50 = line_width_w50(velocity, profile)
     summary = {
         "n_particles_selected": rendered.n_selected,
         "hi_mass_selected": rendered.hi_mass,
@@ -579,7 +587,8 @@ def summarise(plan, orientation, rendered, *, paths=None) -> RunResult:
         "outside_fraction": 1.0 - rendered.deposited_weight / rendered.total_weight,
         "noise_rms": noise,
         "peak_snr": None if noise is None else rendered.peak_model / noise.to_value(u.Jy / u.beam),
-        "w50": line_width_w50(velocity, profile),
+        "w50": w50,
+        "w50_rest": w50 * (1 + plan.distances.systemic_redshift),
         "voxel_contributions": rendered.n_contributions,
         "velocity": velocity,
         "profile": profile,

@@ -81,7 +81,8 @@ def format_summary(result) -> str:
     lines.append(_line("HI mass, from cube", f"{recovered.value:.4e}{spread} Msun "
                                              f"({100 * (recovered / selected - 1).value:+.2f}%)"))
     lines.append(_line("outside the cube", f"{100 * summary['outside_fraction']:.3f}% of the HI"))
-    lines.append(_line("W50", f"{summary['w50'].to(u.km / u.s):.1f}"))
+    lines.append(_line("W50", f"{summary['w50'].to(u.km / u.s):.1f} (observed radio velocity), "
+                              f"{summary['w50_rest'].to(u.km / u.s):.1f} rest frame"))
     if summary["noise_rms"] is None:
         lines.append(_line("noise", "none"))
     else:

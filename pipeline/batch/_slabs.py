@@ -22,10 +22,10 @@ from pipeline import __version__
 from pipeline.analysis import moment0_from_chunks
 from pipeline.chain import orient_galaxy, output_paths, plan_run, render_channels, write_maps
 from pipeline.cube import Cube
-from pipeline.emission import column_density_from_brightness, column_density_from_flux
+from pipeline.emission import column_density_from_flux
 from pipeline.errors import EmptyFieldError, MemoryBudgetError
 from pipeline.geometry import make_cube_wcs
-from pipeline.instrument import add_thermal_noise, cube_to_kelvin
+from pipeline.instrument import add_thermal_noise, cube_to_kelvin, jy_per_beam_to_kelvin
 from pipeline.io import create_fits_cube, finalise_fits_cube, write_fits_slab
 
 from ._catalogue import ChannelSums, measure_channels, noise_correlation
@@ -193,6 +193,12 @@ def _cube_chunks(path, n_chan, step):
             yield opened[0].section[first:first + step]
 
 
+def _jy_chunks(chunks, kelvin_per_jy, step):
+    """Yield K chunks (``step`` channels each, in order) back in Jy/beam."""
+    for index, chunk in enumerate(chunks):
+        yield chunk / kelvin_per_jy[index * step:index * step + len(chunk), np.newaxis, np.newaxis]
+
+
 def _write_maps(work, sums, config):
     """Write the moment-0 and column-density maps and the preview a whole-cube run writes; return their paths.
 
@@ -206,12 +212,16 @@ def _write_maps(work, sums, config):
     grid = work.grid
     # At most 16 MiB and never more channels than the smallest slab, which the memory budget admits.
     step = max(1, min(_VALUES_PER_CHUNK // (grid.n_x * grid.n_y), *(stop - first for first, stop in work.ranges)))
-    chunks = _cube_chunks(work.final, grid.n_chan, step)
-    map0 = moment0_from_chunks(chunks, make_cube_wcs(grid), unit)
+    wcs = make_cube_wcs(grid)
+    map0 = moment0_from_chunks(_cube_chunks(work.final, grid.n_chan, step), wcs, unit)
     if unit == u.K:
-        column = column_density_from_brightness(map0).to(u.cm**-2)
+        # N_HI from the Jy/beam map, as a whole-cube run does: undo each channel's K factor.
+        kelvin_per_jy = jy_per_beam_to_kelvin(grid.channel_frequencies, work.beam).to_value(u.K / _JY_PER_BEAM)
+        map_jy = moment0_from_chunks(_jy_chunks(_cube_chunks(work.final, grid.n_chan, step), kelvin_per_jy, step),
+                                     wcs, _JY_PER_BEAM)
     else:
-        column = column_density_from_flux(map0, work.beam, redshift=work.redshift).to(u.cm**-2)
+        map_jy = map0
+    column = column_density_from_flux(map_jy, work.beam, redshift=work.redshift).to(u.cm**-2)
     write_maps(paths, moment0=map0, column_density=column, grid=grid, beam=work.beam,
                velocity=sums.velocity_kms * u.km / u.s, profile=sums.profile_jy * u.Jy, config=config, overwrite=True)
     return paths

@@ -138,7 +138,7 @@ PARAMS = (
     # --- observer -----------------------------------------------------------------
     Param("observer.distance", "length", None, "distance to the galaxy (nearby sources; give this or redshift)",
           positive=True, display_unit="Mpc"),
-    Param("observer.redshift", "float", None, "cosmological redshift of the galaxy (give this or distance)", minimum=0.0),
+    Param("observer.redshift", "float", None, "cosmological redshift of the galaxy, > 0 (give this or distance)", positive=True),
     Param("observer.cosmology", "str", "Planck18", "astropy.cosmology realisation used with redshift",
           choices=("Planck18", "Planck15", "Planck13", "WMAP9", "WMAP7", "WMAP5")),
     Param("observer.systemic_velocity", "velocity", "0 km/s",

@@ -44,7 +44,7 @@ def _whole_cube(batch, tmp_path):
 def test_slab_job_assembles_the_single_process_cube(slab_batch, tmp_path, fitsverify, monkeypatch, unit):
     from pipeline.batch import _slabs
 
-    if unit == "K":  # the cube, and so the moment-0 map, in K; the column density from the brightness
+    if unit == "K":  # the cube and moment-0 map in K; the column density from the same file back in Jy/beam
         slab_batch.write_text(slab_batch.read_text() + '[sweep.keys.emission]\nunit = ["K"]\n')
     batch = load_batch(slab_batch)
     (estimate,) = estimate_jobs(batch)
@@ -66,8 +66,8 @@ def test_slab_job_assembles_the_single_process_cube(slab_batch, tmp_path, fitsve
     for output in record["outputs"].values():
         assert file_sha256(batch.output_dir / output["path"]) == output["sha256"]
     # The maps were summed from the file at most a slab of channels at a time (the smallest of the 3 slabs
-    # of 17 channels holds 5), never the whole cube at once.
-    assert sum(read_back) == 17 and max(read_back) <= 5 and len(read_back) > 1
+    # of 17 channels holds 5), never the whole cube at once; a K cube is read twice (K map, Jy/beam map).
+    assert sum(read_back) == 17 * (2 if unit == "K" else 1) and max(read_back) <= 5 and len(read_back) > 1
     slabbed_path = batch.output_dir / record["outputs"]["cube"]["path"]
     with warnings.catch_warnings():
         warnings.simplefilter("error")
