@@ -294,7 +294,7 @@ def test_field_units_of_the_wrong_physical_type_are_refused(name, unit, message)
 
 def test_redshift_below_zero_is_refused():
     mapping = {"snapshot": {"path": "/s.h5"}, "observer": {"redshift": -0.1}}
-    with pytest.raises(ConfigError, match=r"^galaxy\.toml:observer\.redshift: expected a value of at least 0; "
+    with pytest.raises(ConfigError, match=r"^galaxy\.toml:observer\.redshift: expected a value greater than 0; "
                                           r"got -0\.1$"):
         config_from_dict(mapping, source="galaxy.toml")
 
