@@ -22,7 +22,7 @@ Kinds
 
 import dataclasses
 
-__all__ = ["Param", "PARAMS", "PARAMS_BY_KEY", "SNAPSHOT_FIELDS", "REQUIRED"]
+__all__ = ["Param", "PARAMS", "PARAMS_BY_KEY", "SNAPSHOT_FIELDS", "REQUIRED", "EXAMPLES", "COMPANIONS"]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -202,3 +202,41 @@ PARAMS = (
 )
 
 PARAMS_BY_KEY = {param.key: param for param in PARAMS}
+
+
+def _field_examples():
+    examples = {}
+    for name, (_, may_be_constant) in SNAPSHOT_FIELDS.items():
+        if may_be_constant:
+            examples[f"snapshot.fields.{name}.dataset"] = f"gas/{name}"
+            examples[f"snapshot.fields.{name}.value"] = 8000.0 if name == "temperature" else 0.5
+    return examples
+
+
+# A valid value, in config-file form, for each key that only some modes use: the keys of each
+# either/or form (the loader's alternatives) and the keys a choice needs (COMPANIONS).  The
+# every-mode test builds one run per choice and per form from these and from the choices above.
+EXAMPLES = {
+    **_field_examples(),
+    "observer.distance": "10 Mpc",
+    "observer.systemic_velocity": "700 km/s",
+    "observer.redshift": 0.003,
+    "snapshot.little_h": 0.7,
+    "snapshot.little_h_attribute": "/little_h",
+    "snapshot.scale_factor": 1.0,
+    "snapshot.scale_factor_attribute": "/scale_factor",
+    "geometry.centre_position": ["0 kpc", "0 kpc", "0 kpc"],
+    "geometry.frame_velocity": ["0 km/s", "0 km/s", "0 km/s"],
+    "geometry.rotation_matrix": [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]],
+    "noise.rms": "0.2 mJy/beam",
+}
+
+# Keys a choice needs before it can run: "key=choice" (one choice) or "key" (every choice)
+# -> keys whose EXAMPLES value is given with it.
+COMPANIONS = {
+    "geometry.centre=explicit": ("geometry.centre_position",),
+    "geometry.frame=explicit": ("geometry.frame_velocity",),
+    "geometry.orientation=explicit": ("geometry.rotation_matrix",),
+    "noise.mode=rms": ("noise.rms",),
+    "observer.cosmology": ("observer.redshift",),
+}
