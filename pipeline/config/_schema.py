@@ -22,7 +22,7 @@ Kinds
 
 import dataclasses
 
-__all__ = ["Param", "PARAMS", "PARAMS_BY_KEY", "SNAPSHOT_FIELDS", "REQUIRED", "EXAMPLES", "COMPANIONS"]
+__all__ = ["Param", "PARAMS", "PARAMS_BY_KEY", "SNAPSHOT_FIELDS", "REQUIRED", "EXAMPLES", "COMPANIONS", "VALUE_FORMS"]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -239,4 +239,9 @@ COMPANIONS = {
     "geometry.orientation=explicit": ("geometry.rotation_matrix",),
     "noise.mode=rms": ("noise.rms",),
     "observer.cosmology": ("observer.redshift",),
+}
+
+# Keys whose value takes more than one form, each of which runs: key -> one example per form.
+VALUE_FORMS = {
+    "grid.channel_width": ("30 km/s", "140 kHz"),
 }

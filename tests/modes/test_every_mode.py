@@ -3,7 +3,8 @@
 The rows are derived from the table, not listed here: one run per ``choices``
 value of every parameter (with the keys that choice needs, ``COMPANIONS``) and
 one per side of every either/or form the loader knows (``_ALTERNATIVES``),
-with values from ``EXAMPLES``.  A choice or form added later gets its row
+with values from ``EXAMPLES``, and one per form of each ``VALUE_FORMS`` key
+(a channel width as a velocity or a frequency).  A choice or form added later gets its row
 without editing this file; the meta-tests fail if one cannot be built.
 """
 
@@ -13,7 +14,7 @@ import numpy as np
 import pytest
 
 from pipeline.config._load import _ALTERNATIVES
-from pipeline.config._schema import COMPANIONS, EXAMPLES, PARAMS, SNAPSHOT_FIELDS
+from pipeline.config._schema import COMPANIONS, EXAMPLES, PARAMS, SNAPSHOT_FIELDS, VALUE_FORMS
 from cli_calls import run_cli
 
 # The small base run: tiny grid, a few hundred particles; every row changes only its own keys.
@@ -70,6 +71,9 @@ def _rows():
     for first, second, _ in _ALTERNATIVES:
         for form in (first, second):
             rows.append(pytest.param(_give(dict(_BASE), form), id="+".join(form)))
+    for key, values in VALUE_FORMS.items():
+        for value in values:
+            rows.append(pytest.param({**_BASE, key: value}, id=f"{key}={value}"))
     return rows
 
 
@@ -112,6 +116,14 @@ def test_every_form_and_companion_has_an_example():
     needed = {key for first, second, _ in _ALTERNATIVES for key in first + second}
     needed |= {key for keys in COMPANIONS.values() for key in keys}
     assert sorted(needed - set(EXAMPLES)) == []
+
+
+def test_every_value_form_has_a_row_and_a_real_key():
+    ids = {row.id for row in ROWS}
+    choices = {p.key for p in PARAMS}
+    for key, values in VALUE_FORMS.items():
+        assert key in choices, key
+        assert all(f"{key}={value}" in ids for value in values), key
 
 
 def test_every_companion_names_a_real_choice():
