@@ -243,6 +243,7 @@ _COMMANDS = {"run": _command_run, "check": _command_check, "inspect": _command_i
 def main(argv=None) -> int:
     """Run the command line; return the exit code (0 ok, 2 bad input)."""
     args = _build_parser().parse_args(argv)
+    error = None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", CubewrightWarning)
         try:
@@ -250,13 +251,14 @@ def main(argv=None) -> int:
         except CubewrightError as err:
             if args.debug:
                 raise
-            _print_warnings(caught, args)
-            print(f"cubewright: error: {err}", file=sys.stderr)
-            return 2
+            error, code = f"cubewright: error: {err}", 2
         except KeyboardInterrupt:
-            print("cubewright: interrupted", file=sys.stderr)
-            return 130
-    _print_warnings(caught, args)
+            error, code = "cubewright: interrupted", 130
+    # Shown only once the recording has stopped: a warning shown while recording would be
+    # appended to the very list being shown, without end.
+    _print_warnings(list(caught), args)
+    if error is not None:
+        print(error, file=sys.stderr)
     return code
 
 

@@ -1,10 +1,16 @@
 """What a user sees from the command line: exit codes, one-line errors, nothing clobbered."""
 
+import os
+import subprocess
+import sys
+from pathlib import Path
+
 import numpy as np
 import pytest
 
 from cli_calls import one_error_line, run_cli
 
+import pipeline
 from pipeline.cli import main
 
 
@@ -157,3 +163,24 @@ def test_inspect_refuses_other_files(capsys, tmp_path):
     other.write_text("hello\n")
     _assert_bad_input(capsys, ["inspect", other], "notes.txt", "neither")
 
+
+
+def test_an_error_after_a_foreign_warning_ends_at_once(tmp_path):
+    # A numpy-style warning recorded before a bad-input error used to be shown inside the recording
+    # block, so each one shown was recorded again and the command never ended (memory growing).
+    script = tmp_path / "warn_then_fail.py"
+    script.write_text(
+        "import sys, warnings\n"
+        "from pipeline import cli\n"
+        "from pipeline.errors import ConfigError\n"
+        "def command(args):\n"
+        "    warnings.warn('overflow encountered', RuntimeWarning)\n"
+        "    raise ConfigError('galaxy.toml:grid.n_x: expected a count')\n"
+        "cli._COMMANDS['check'] = command\n"
+        "sys.exit(cli.main(['check', 'galaxy.toml']))\n")
+    here = {**os.environ, "PYTHONPATH": str(Path(pipeline.__file__).parents[1])}   # this checkout's package
+    finished = subprocess.run([sys.executable, "-W", "default", str(script)], capture_output=True, text=True,
+                              timeout=120, env=here)
+    assert finished.returncode == 2
+    assert finished.stderr.count("RuntimeWarning: overflow encountered") == 1
+    assert finished.stderr.strip().splitlines()[-1] == "cubewright: error: galaxy.toml:grid.n_x: expected a count"
