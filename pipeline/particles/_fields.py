@@ -93,8 +93,8 @@ _DIMENSIONLESS = u.dimensionless_unscaled
 
 #: Every quantity the reader knows, keyed as in the config's ``snapshot.fields``.
 FIELD_KINDS = {
-    "position": _FieldKind("position_kpc", LENGTH, True, False, "finite"),
-    "velocity": _FieldKind("velocity_kms", VELOCITY, True, False, "finite"),
+    "position": _FieldKind("position_kpc", LENGTH, True, False, "within_universe"),
+    "velocity": _FieldKind("velocity_kms", VELOCITY, True, False, "below_light"),
     "mass": _FieldKind("mass_msun", MASS, False, False, "positive"),
     "smoothing_length": _FieldKind("h_kpc", LENGTH, False, False, "positive"),
     "temperature": _FieldKind("temperature_k", TEMPERATURE, False, True, "positive"),
@@ -111,12 +111,22 @@ REQUIRED_FIELDS = ("position", "velocity", "mass", "smoothing_length", "temperat
 
 _NON_FINITE = "NaN or infinite"
 
+# Values no snapshot can hold: a corrupt file or a unit slip, refused before they reach the geometry
+# (a coordinate of 1e300 kpc overflows every later step).  The comoving radius of the observable
+# universe is about 4.4e7 kpc (value from memory); 1e8 kpc leaves room for any box and its periodic copies.
+_LIGHT_KMS = 299792.458
+_UNIVERSE_KPC = 1.0e8
+_FASTER_THAN_LIGHT = f"at or above the speed of light ({_LIGHT_KMS} km/s) in one component"
+_BEYOND_UNIVERSE = f"farther than {_UNIVERSE_KPC:.0e} kpc from the origin in one coordinate (larger than the observable universe)"
+
 # What is wrong with a value -> the test that finds it (NaN compares false in every other test).
 _PROBLEMS = {
     _NON_FINITE: lambda values: ~np.isfinite(values),
     "zero or negative": lambda values: values <= 0.0,
     "outside [0, 1]": lambda values: (values < 0.0) | (values > 1.0),
     "negative": lambda values: values < 0.0,
+    _FASTER_THAN_LIGHT: lambda values: np.abs(values) >= _LIGHT_KMS,
+    _BEYOND_UNIVERSE: lambda values: np.abs(values) > _UNIVERSE_KPC,
 }
 
 _RULE_PROBLEM = {
@@ -124,6 +134,8 @@ _RULE_PROBLEM = {
     "positive": "zero or negative",
     "fraction": "outside [0, 1]",
     "non_negative": "negative",
+    "below_light": _FASTER_THAN_LIGHT,
+    "within_universe": _BEYOND_UNIVERSE,
 }
 
 

@@ -184,3 +184,20 @@ def test_an_error_after_a_foreign_warning_ends_at_once(tmp_path):
     assert finished.returncode == 2
     assert finished.stderr.count("RuntimeWarning: overflow encountered") == 1
     assert finished.stderr.strip().splitlines()[-1] == "cubewright: error: galaxy.toml:grid.n_x: expected a count"
+
+
+@pytest.mark.parametrize("field", ["position", "velocity"])
+def test_a_particle_at_1e300_ends_in_one_error_line(make_snapshot, small_run_config, field, tmp_path):
+    # Used to hang with memory growing (position) or end in a traceback (velocity).
+    config = small_run_config()
+    values = np.random.default_rng(3).normal(0.0, 3.0, (200, 3))
+    values[5, 1] = 1e300
+    make_snapshot(200, **{field: values})
+    here = {**os.environ, "PYTHONPATH": str(Path(pipeline.__file__).parents[1])}
+    finished = subprocess.run([sys.executable, "-m", "pipeline", "run", str(config)], capture_output=True,
+                              text=True, timeout=120, env=here, cwd=tmp_path)
+    assert finished.returncode == 2, finished.stderr
+    assert "Traceback" not in finished.stderr
+    (line,) = [text for text in finished.stderr.splitlines() if text.startswith("cubewright: error:")]
+    assert f"snapshot.h5:gas/{field}: 1 value is" in line and "(first at row 5)" in line
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())   # nothing written

@@ -412,6 +412,14 @@ def with_bad(n_particles, rows, value, *, shape=None):
     ("position", with_bad(40, (23, 2), np.inf, shape=(40, 3)), r"1 value is NaN or infinite \(first at row 23\)"),
     ("velocity", with_bad(40, (slice(30, 32), 0), -np.inf, shape=(40, 3)),
      r"2 values are NaN or infinite \(first at row 30\)"),
+    # Impossible magnitudes that overflowed the geometry passes (1e300 kpc, 1e300 km/s): refused at read.
+    ("position", with_bad(40, (11, 0), 1e300, shape=(40, 3)),
+     r"1 value is farther than 1e\+08 kpc from the origin in one coordinate \(larger than the observable "
+     r"universe\) \(first at row 11\)"),
+    ("velocity", with_bad(40, (14, 2), -1e300, shape=(40, 3)),
+     r"1 value is at or above the speed of light \(299792\.458 km/s\) in one component \(first at row 14\)"),
+    ("velocity", with_bad(40, (3, 1), 299792.458, shape=(40, 3)),
+     r"1 value is at or above the speed of light \(299792\.458 km/s\) in one component \(first at row 3\)"),
     ("mass", with_bad(40, [9], 0.0), r"1 value is zero or negative \(first at row 9\)"),
     ("mass", with_bad(40, [2, 30, 39], 0.0), r"3 values are zero or negative \(first at row 2\)"),
     ("mass", with_bad(40, [12, 13], -1e5), r"2 values are zero or negative \(first at row 12\)"),
