@@ -14,7 +14,7 @@ from pipeline.cube import Cube
 from pipeline.errors import FitsInputError
 from pipeline.instrument import BeamSpec
 
-from ._fits_write import NOISE_KEYWORD, NOISE_PROVENANCE_KEY
+from ._fits_write import NOISE_JY_KEYWORD, NOISE_KEYWORD, NOISE_PROVENANCE_KEY
 from ._provenance import (CONFIG_EXTNAME, DIGEST_KEYWORD, PROVENANCE_EXTNAME, VERSION_KEYWORD, config_digest,
                           config_text_from_table, provenance_from_table)
 
@@ -124,11 +124,21 @@ def _stored_record(hdul, path):
         raise FitsInputError(f"{layout}: {_one_line(err)}") from err
 
 
+def _is_temperature(header):
+    """Whether BUNIT is a temperature (NOISERMS is then in K, not Jy/beam)."""
+    try:
+        return u.Unit(header.get("BUNIT", ""), format="fits").is_equivalent(u.K)
+    except ValueError:
+        return False
+
+
 def _provenance(hdul, header, path):
     """Return the PROVENANCE record, or the NOISERMS keyword alone when there is none."""
     if PROVENANCE_EXTNAME in hdul:
         return _stored_record(hdul, path)
-    if NOISE_KEYWORD in header:
+    if NOISE_JY_KEYWORD in header:
+        return {NOISE_PROVENANCE_KEY: float(header[NOISE_JY_KEYWORD])}
+    if NOISE_KEYWORD in header and not _is_temperature(header):
         return {NOISE_PROVENANCE_KEY: float(header[NOISE_KEYWORD])}
     return {}
 
@@ -303,9 +313,11 @@ def _data_lines(index, header):
                      f"position angle {header.get('BPA', 0.0):.6g} deg (BMAJ, BMIN, BPA)")
     else:
         lines.append("  beam: not set (no BMAJ/BMIN)")
-    noise = header.get(NOISE_KEYWORD)
+    noise, noise_jy = header.get(NOISE_KEYWORD), header.get(NOISE_JY_KEYWORD)
+    unit = header.get("BUNIT", "?") if _is_temperature(header) else "Jy/beam"
     lines.append(f"  noise rms per channel ({NOISE_KEYWORD}): "
-                 + ("not recorded" if noise is None else f"{noise:.6g} Jy/beam"))
+                 + ("not recorded" if noise is None else f"{noise:.6g} {unit}")
+                 + ("" if noise_jy is None else f" ({NOISE_JY_KEYWORD}: {noise_jy:.6g} Jy/beam)"))
     return lines
 
 

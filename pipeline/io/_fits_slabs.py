@@ -80,7 +80,7 @@ def create_fits_cube(path, *, array_shape, wcs, unit, beam=None, provenance=None
     if path.exists() and not overwrite:
         raise OutputError(f"{path}: exists; pass --overwrite to replace it")
     check_writable(path.parent)
-    cards = cube_cards(unit, beam, provenance or {}, path)
+    cards = cube_cards(unit, beam, provenance or {}, path, wcs)
     header = primary_header(array_shape, wcs, cards, config_text=config_text).tostring().encode("ascii")
     data_bytes = padded_bytes(_DTYPE.itemsize * math.prod(array_shape))
     extensions = extension_bytes(config_text, provenance)

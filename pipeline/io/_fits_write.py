@@ -11,8 +11,10 @@ BUNIT     data unit in FITS syntax, e.g. ``'Jy beam-1'``,
 BMAJ      beam FWHM along the major axis, degrees (when a beam is set)
 BMIN      beam FWHM along the minor axis, degrees
 BPA       beam position angle, degrees east of north
-NOISERMS  thermal noise rms per channel in Jy/beam, from
-          ``provenance["noise_rms_jy_per_beam"]``
+NOISERMS  thermal noise rms per channel in the cube's unit (BUNIT), from
+          ``provenance["noise_rms_jy_per_beam"]``; for a K cube at the
+          reference channel (Rayleigh-Jeans, scaling as nu^-2 across the band)
+NOISEJY   the same rms in Jy/beam, beside NOISERMS in a K cube
 ORIGIN, DATE, CWVERS, CWCFGSHA
           see :mod:`pipeline.io._provenance`
 ========  ===============================================================
@@ -39,6 +41,7 @@ from ._provenance import config_table, provenance_cards, provenance_table
 __all__ = ["write_cube", "write_image", "fits_unit_string", "NOISE_KEYWORD", "NOISE_PROVENANCE_KEY"]
 
 NOISE_KEYWORD = "NOISERMS"
+NOISE_JY_KEYWORD = "NOISEJY"
 NOISE_PROVENANCE_KEY = "noise_rms_jy_per_beam"
 
 _BLOCK = 2880
@@ -114,21 +117,36 @@ def _beam_cards(beam):
     ]
 
 
-def _noise_cards(provenance):
-    """Return the NOISERMS card when the provenance records a noise rms."""
+def _reference_frequency(wcs):
+    """Frequency at the spectral reference pixel of a cube WCS (FREQ, or VRAD with RESTFRQ)."""
+    spectral = wcs.spectral
+    return u.Quantity(spectral.pixel_to_world(spectral.wcs.crpix[0] - 1).to(u.Hz))
+
+
+def _noise_cards(provenance, unit, beam, wcs):
+    """Return NOISERMS in the cube's unit (and NOISEJY beside it for a K cube) when a noise rms is recorded."""
     if NOISE_PROVENANCE_KEY not in provenance:
         return []
     rms = provenance[NOISE_PROVENANCE_KEY]
     rms_jy_per_beam = rms.to_value(u.Jy / u.beam) if isinstance(rms, u.Quantity) else float(rms)
-    return [(NOISE_KEYWORD, float(rms_jy_per_beam), "[Jy beam-1] thermal noise rms per channel")]
+    in_jy = (NOISE_KEYWORD, float(rms_jy_per_beam), "[Jy beam-1] thermal noise rms per channel")
+    if not (unit.is_equivalent(u.K) and beam is not None and wcs is not None and wcs.has_spectral):
+        return [in_jy]
+    # Rayleigh-Jeans at the reference channel (astropy's brightness_temperature); across the band
+    # the K rms of each channel scales as nu^-2 about it.
+    frequency = _reference_frequency(wcs)
+    beam_area = math.pi / (4 * math.log(2)) * beam.major * beam.minor
+    kelvin = (rms_jy_per_beam * u.Jy).to(unit, u.brightness_temperature(frequency, beam_area=beam_area))
+    return [(NOISE_KEYWORD, float(kelvin.value), f"[{fits_unit_string(unit)}] noise rms per channel at CRPIX3"),
+            (NOISE_JY_KEYWORD, float(rms_jy_per_beam), "[Jy beam-1] thermal noise rms per channel")]
 
 
-def cube_cards(unit, beam, provenance, path):
-    """Return the BUNIT, beam (when set) and NOISERMS (when recorded) cards of a cube written to ``path``."""
+def cube_cards(unit, beam, provenance, path, wcs=None):
+    """Return the BUNIT, beam (when set) and noise (when recorded) cards of a cube written to ``path``."""
     cards = [_unit_card(unit, path)]
     if beam is not None:
         cards.extend(_beam_cards(beam))
-    cards.extend(_noise_cards(provenance))
+    cards.extend(_noise_cards(provenance, unit, beam, wcs))
     return cards
 
 
@@ -287,7 +305,7 @@ def write_cube(cube, path, *, overwrite=False, config_text=None, extra_cards=Non
     path = pathlib.Path(path)
     if not cube.wcs.has_celestial:
         raise ValueError(f"the cube WCS must have celestial axes; got CTYPE {list(cube.wcs.wcs.ctype)}")
-    cards = cube_cards(cube.unit, cube.beam, cube.provenance, path)
+    cards = cube_cards(cube.unit, cube.beam, cube.provenance, path, cube.wcs)
     _write(cube.data, cube.wcs, cards, path, overwrite=overwrite, config_text=config_text,
            provenance=cube.provenance, extra_cards=extra_cards)
 

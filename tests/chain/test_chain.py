@@ -138,3 +138,26 @@ def test_kept_model_is_the_noise_free_cube(small_run_config):
     residual = noisy.cube.data.astype(np.float64) - noisy.model.data
     rms = noisy.summary["noise_rms"].to_value(u.Jy / u.beam)
     assert np.std(residual) == pytest.approx(rms, rel=0.05)
+
+
+def test_kelvin_cube_states_its_noise_in_kelvin_with_the_jy_value_beside_it(small_run_config):
+    # NOISERMS in BUNIT (a K cube wrote the Jy/beam number under BUNIT = 'K'); the K value is the
+    # Jy/beam rms through astropy's brightness_temperature at the reference channel (check-values HI-07).
+    from astropy.io import fits
+
+    config = load_config(small_run_config(), overrides=["emission.unit=K", "noise.rms=2 mJy/beam"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ParticlesOutsideFieldWarning)
+        result = run(config, keep_model=True)
+    header = fits.getheader(result.paths["cube"])
+    assert header["BUNIT"] == "K"
+    assert header["NOISEJY"] == pytest.approx(2e-3, rel=1e-12)
+    frequency = result.cube.wcs.spectral.pixel_to_world(header["CRPIX3"] - 1).to(u.Hz)
+    expected = (2 * u.mJy).to(u.K, u.brightness_temperature(frequency, beam_area=result.cube.beam.solid_angle))
+    assert header["NOISERMS"] == pytest.approx(expected.value, rel=1e-9)
+    assert "[K]" in header.comments["NOISERMS"]
+    # The data agree: the central channel less its noise-free model (Jy/beam, put in K the same way).
+    model_k = (result.model.data[8] * u.Jy).to(u.K, u.brightness_temperature(
+        frequency, beam_area=result.cube.beam.solid_angle)).value
+    noise = result.cube.data[8] - model_k
+    assert noise.std() == pytest.approx(header["NOISERMS"], rel=0.3)   # 888 beam-correlated pixels
