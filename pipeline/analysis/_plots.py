@@ -43,7 +43,7 @@ def plot_preview(moment_map, image_wcs, velocity, flux_density, path, *, beam=No
     sky.coords[1].set_axislabel("Declination (ICRS)")
     sky.coords[0].set_major_formatter("hh:mm:ss")
     colorbar = figure.colorbar(image, ax=sky, fraction=0.046, pad=0.04)
-    colorbar.set_label(moment_map.unit.to_string("latex_inline"))
+    colorbar.set_label(f"{_map_name(moment_map.unit)} ({moment_map.unit.to_string('latex_inline')}), square-root stretch")
     if beam is not None:
         pixel_deg = proj_plane_pixel_scales(image_wcs)[1]
         major_pix = beam.major.to_value(u.deg) / pixel_deg
@@ -55,7 +55,7 @@ def plot_preview(moment_map, image_wcs, velocity, flux_density, path, *, beam=No
         sky.add_patch(Ellipse(centre, width=major_pix, height=minor_pix,
                               angle=90.0 + beam.position_angle.to_value(u.deg),
                               edgecolor="white", facecolor="none", linewidth=1.2))
-    sky.set_title("Moment 0")
+    sky.set_title(_map_name(moment_map.unit))
 
     spectrum = figure.add_subplot(1, 2, 2)
     spectrum.step(velocity.to_value(u.km / u.s), flux_density.to_value(u.mJy), where="mid", color="k")
@@ -154,3 +154,10 @@ def plot_batch_summary(table, path, *, detection_threshold=None):
     figure.tight_layout()
     figure.savefig(path, dpi=100, format="png")
     plt.close(figure)
+
+
+def _map_name(unit):
+    """What a 2-D map of this unit shows, for titles."""
+    if unit.is_equivalent(u.cm**-2):
+        return "HI column density"
+    return "Moment 0"

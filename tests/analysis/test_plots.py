@@ -27,3 +27,30 @@ def test_value_axis_is_log_only_beyond_a_decade(values, scale, minor_labels):
 def test_tick_labels_are_plain_numbers_or_powers_of_ten():
     assert [_tick_label(value) for value in (0.5, 20.0, 3000.0)] == ["0.5", "20", "3000"]
     assert _tick_label(5e9) == r"$5\times10^{9}$"
+
+
+def test_preview_names_the_column_density_map_and_its_stretch(tmp_path, monkeypatch):
+    # The left panel showed N_HI under the title "Moment 0", on an unstated square-root stretch.
+    import astropy.units as u
+    import matplotlib.figure
+    import numpy as np
+    from astropy.wcs import WCS
+
+    from pipeline.analysis import plot_preview
+
+    seen = {}
+    save = matplotlib.figure.Figure.savefig
+
+    def spy(figure, *args, **kwargs):
+        seen["titles"] = [axis.get_title() for axis in figure.axes]
+        seen["labels"] = [axis.get_ylabel() for axis in figure.axes]
+        return save(figure, *args, **kwargs)
+
+    monkeypatch.setattr(matplotlib.figure.Figure, "savefig", spy)
+    wcs = WCS(naxis=2)
+    wcs.wcs.ctype = ["RA---SIN", "DEC--SIN"]
+    wcs.wcs.cdelt = [-1 / 360, 1 / 360]
+    column = np.ones((12, 10)) * 1e20 * u.cm**-2
+    plot_preview(column, wcs, np.linspace(-100, 100, 9) * u.km / u.s, np.ones(9) * u.Jy, tmp_path / "p.png")
+    assert "HI column density" in seen["titles"]
+    assert any("square-root stretch" in label for label in seen["labels"])
