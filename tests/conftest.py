@@ -1,4 +1,8 @@
-"""Shared fixtures: a seeded random generator and a tiny-snapshot factory."""
+"""Shared fixtures: a seeded random generator, a tiny-snapshot factory and fitsverify."""
+
+import re
+import shutil
+import subprocess
 
 import h5py
 import numpy as np
@@ -110,3 +114,23 @@ def small_run_config(tmp_path, make_snapshot):
         return path
 
     return _make
+
+
+_FITSVERIFY_SUMMARY = re.compile(r"Verification found (\d+) warning\(s\) and (\d+) error\(s\)")
+
+
+@pytest.fixture
+def fitsverify():
+    """Return a function running HEASARC fitsverify on a file: (n_warnings, n_errors, report)."""
+    program = shutil.which("fitsverify")
+    if program is None:
+        pytest.skip("fitsverify is not installed")
+
+    def _run(path):
+        report = subprocess.run([program, str(path)], capture_output=True, text=True, check=False)
+        text = report.stdout + report.stderr
+        found = _FITSVERIFY_SUMMARY.search(text)
+        assert found is not None, text
+        return int(found.group(1)), int(found.group(2)), text
+
+    return _run

@@ -28,24 +28,3 @@ def write_batch(tmp_path, small_run_config):
         return path
 
     return _write
-
-
-@pytest.fixture
-def fitsverify():
-    """Return a function running HEASARC fitsverify on a file: (n_warnings, n_errors, report)."""
-    import re
-    import shutil
-    import subprocess
-
-    program = shutil.which("fitsverify")
-    if program is None:
-        pytest.skip("fitsverify is not installed")
-
-    def _run(path):
-        report = subprocess.run([program, str(path)], capture_output=True, text=True, check=False)
-        text = report.stdout + report.stderr
-        found = re.search(r"Verification found (\d+) warning\(s\) and (\d+) error\(s\)", text)
-        assert found is not None, text
-        return int(found.group(1)), int(found.group(2)), text
-
-    return _run

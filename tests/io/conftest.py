@@ -1,7 +1,6 @@
 """Fixtures for the FITS tests: WCS and cube factories, a beam stand-in, verifier runners."""
 
 import dataclasses
-import re
 import shutil
 import subprocess
 
@@ -87,26 +86,6 @@ def make_cube(rng):
 def beam():
     """An elliptical beam at a non-zero position angle (check-values FW-09 example)."""
     return StandInBeam(major=30 * u.arcsec, minor=20 * u.arcsec, position_angle=45 * u.deg)
-
-
-_SUMMARY = re.compile(r"Verification found (\d+) warning\(s\) and (\d+) error\(s\)")
-
-
-@pytest.fixture
-def fitsverify():
-    """Return a function running fitsverify on a file and giving (n_warnings, n_errors, report)."""
-    program = shutil.which("fitsverify")
-    if program is None:
-        pytest.skip("fitsverify is not installed")
-
-    def _run(path):
-        report = subprocess.run([program, str(path)], capture_output=True, text=True, check=False)
-        text = report.stdout + report.stderr
-        found = _SUMMARY.search(text)
-        assert found is not None, text
-        return int(found.group(1)), int(found.group(2)), text
-
-    return _run
 
 
 @pytest.fixture
