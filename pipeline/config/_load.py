@@ -21,6 +21,7 @@ import types
 from collections.abc import Mapping
 from pathlib import Path
 
+import astropy.constants as const
 import astropy.units as u
 import numpy as np
 
@@ -355,6 +356,14 @@ def _check_rules(values, source, places, ranks):
     if values["noise.mode"] == "rms" and values["noise.rms"] is None:
         raise ConfigError(f"{where('noise.rms')}: required when noise.mode = 'rms', e.g. rms = '0.4 mJy/beam'; "
                           "got nothing")
+    velocity = values["observer.systemic_velocity"]
+    if velocity is not None and not abs(velocity) < const.c:
+        raise ConfigError(f"{where('observer.systemic_velocity')}: expected a speed below that of light "
+                          f"(cz = c z, e.g. '700 km/s'); got {velocity}")
+    name = values["output.name"]
+    if name is not None and (name in ("", ".", "..") or "/" in name):
+        raise ConfigError(f"{where('output.name')}: expected a file base name without folders "
+                          f"(set output.directory for the folder), e.g. 'galaxy'; got {name!r}")
     major, minor = values["beam.major"], values["beam.minor"]
     if minor > major:
         if ranks.get("beam.major", -1) > ranks.get("beam.minor", -1):

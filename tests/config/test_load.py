@@ -839,3 +839,19 @@ def test_run_config_has_no_value_equality():
     # Configs compare by digest; == is identity (no elementwise array comparisons).
     assert make() != make()
     assert isinstance(make(), RunConfig)
+
+
+# Each of these ended in a traceback (the distance resolver) or wrote outside
+# output.directory; now one line naming the key.
+@pytest.mark.parametrize(("sections", "message"), [
+    ({"observer": {"distance": "10 Mpc", "systemic_velocity": "299792.458 km/s"}},
+     r"galaxy\.toml:observer\.systemic_velocity: expected a speed below that of light .*; got 299792\.458 km / s$"),
+    ({"observer": {"distance": "10 Mpc", "systemic_velocity": "-4e5 km/s"}},
+     r"galaxy\.toml:observer\.systemic_velocity: expected a speed below that of light .*; got -400000\.0 km / s$"),
+    ({"output": {"name": "../escape/cube"}},
+     r"galaxy\.toml:output\.name: expected a file base name without folders .*; got '\.\./escape/cube'$"),
+    ({"output": {"name": ".."}}, r"galaxy\.toml:output\.name: expected a file base name .*; got '\.\.'$"),
+])
+def test_values_the_run_cannot_use_are_refused_at_load(sections, message):
+    with pytest.raises(ConfigError, match=message):
+        make(**sections)
